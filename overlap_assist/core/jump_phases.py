@@ -1,0 +1,175 @@
+"""Flights, events and phases of jumps from the load-factor curve.
+
+Phase names follow the force-plate literature on the countermovement jump (McMahon, Suchomel,
+Lake & Comfort 2018, Strength Cond. J. 40(4):96-106): quiet stance (their "weighing"),
+unweighting, braking, propulsion, flight, landing; "recovery" is our name for what follows the
+landing. Events (takeoff, touchdown) are placed at sub-sample precision by the midpoint rule:
+the smoothing kernel is symmetric, so a step in acceleration is crossed at half its height
+exactly at the instant of the step, whatever the window.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .body_types import AnalysisSettings, Phase
+from .constants import MIN_TAKEOFF_SPEED_MPS, SURE_FLIGHT_LOAD
+
+RECOVERY_SETTLED_S = 0.25
+"""Recovery ends once the load stays near 1 g this long (s); a judgement for keyed clips."""
+
+
+@dataclass(frozen=True)
+class FlightEvents:
+    takeoff_s: float
+    touchdown_s: float
+
+
+def _runs(mask: np.ndarray):
+    """(start, end) index pairs of runs of True, end inclusive."""
+    padded = np.concatenate(([False], mask, [False])).astype(np.int8)
+    d = np.diff(padded)
+    return list(zip(np.flatnonzero(d == 1), np.flatnonzero(d == -1) - 1))
+
+
+def _crossing_time(t: np.ndarray, y: np.ndarray, lo: int, hi: int, level: float, rising: bool) -> float:
+    """First time in samples lo..hi where y crosses ``level`` in the given direction (linear interpolation)."""
+    lo, hi = max(lo, 0), min(hi, y.size - 1)
+    for i in range(lo, hi):
+        a, b = y[i] - level, y[i + 1] - level
+        if (a < 0 <= b) if rising else (a > 0 >= b):
+            return float(t[i] + (t[i + 1] - t[i]) * (a / (a - b)))
+    return float("nan")
+
+
+def find_flights(t_s: np.ndarray, load: np.ndarray, vz: np.ndarray, half_window: int, settings: AnalysisSettings):
+    """Airborne intervals with takeoff and touchdown at sub-sample precision.
+
+    Returns
+    -------
+    flights : list of FlightEvents
+    warnings : list of str
+    """
+    warnings = []
+    flights = []
+    n = load.size
+    reach = half_window + 1
+    for i0, i1 in _runs(load < settings.flight_load_max):
+        if i0 == 0 or i1 == n - 1:
+            warnings.append("the clip starts or ends in the air: that flight is not checked "
+                            "(extend the frame range to include takeoff and touchdown)")
+            continue
+        inside = load[i0:i1 + 1]
+        level_air = float(np.median(inside))
+        if vz[i0] < MIN_TAKEOFF_SPEED_MPS and level_air > SURE_FLIGHT_LOAD:
+            continue  # low load from rest: unweighting into a crouch, not a flight
+        before = float(load[max(i0 - reach, 0)])
+        after = float(load[min(i1 + reach, n - 1)])
+        t_to = _crossing_time(t_s, load, i0 - reach, i0, 0.5 * (before + level_air), rising=False)
+        t_td = _crossing_time(t_s, load, i1, i1 + reach, 0.5 * (after + level_air), rising=True)
+        if not np.isfinite(t_to):
+            t_to = float(t_s[i0])
+        if not np.isfinite(t_td):
+            t_td = float(t_s[i1])
+        if t_td - t_to < settings.min_flight_s:
+            continue
+        flights.append(FlightEvents(t_to, t_td))
+    return flights, warnings
+
+
+def jump_phases(t_s, load, vz, flights, settings: AnalysisSettings, fps: float, frame0: float):
+    """Phases around each flight, in frames.
+
+    Parameters
+    ----------
+    t_s : ndarray (n,) sample times; load : ndarray (n,) load factor; vz : ndarray (n,) vertical
+    velocity (m/s); flights : list of FlightEvents.
+
+    Returns
+    -------
+    phases : list of Phase (in time order)
+    landing_ends_s : list of float, end of each landing (body stops descending)
+    """
+    def frame(ts):
+        return frame0 + ts * fps
+
+    def index_at(ts):
+        return int(np.clip(np.searchsorted(t_s, ts), 0, t_s.size - 1))
+
+    phases = []
+    landing_ends = []
+    limit_s = float(t_s[0])
+    drop = settings.onset_load_drop
+    for k, fl in enumerate(flights):
+        i_to = index_at(fl.takeoff_s)
+        i_lim = index_at(limit_s)
+        # Lowest point: vertical velocity last crosses zero upward before takeoff.
+        lowest = float("nan")
+        for i in range(i_to - 1, i_lim, -1):
+            if vz[i - 1] <= 0 < vz[i]:
+                a, b = vz[i - 1], vz[i]
+                lowest = float(t_s[i - 1] + (t_s[i] - t_s[i - 1]) * (-a / (b - a)))
+                break
+        events = []
+        if np.isfinite(lowest):
+            i_low = index_at(lowest)
+            # Braking starts at peak downward velocity, where the load rises back through 1 g.
+            braking = float("nan")
+            for i in range(i_low, i_lim, -1):
+                if load[i - 1] < 1.0 <= load[i]:
+                    braking = _crossing_time(t_s, load, i - 1, i, 1.0, rising=True)
+                    break
+            if np.isfinite(braking):
+                onset = float(t_s[i_lim])
+                for i in range(index_at(braking), i_lim, -1):
+                    if load[i - 1] >= 1.0 - drop > load[i]:
+                        onset = _crossing_time(t_s, load, i - 1, i, 1.0 - drop, rising=False)
+                        break
+                events = [("unweighting", onset), ("braking", braking), ("propulsion", lowest)]
+            else:
+                events = [("propulsion", lowest)]
+        else:
+            start = float(t_s[i_lim])
+            for i in range(i_to, i_lim, -1):
+                if load[i - 1] < 1.0 + drop <= load[i]:
+                    start = _crossing_time(t_s, load, i - 1, i, 1.0 + drop, rising=True)
+                    break
+            events = [("propulsion", start)]
+        if events[0][1] > limit_s + 1e-9:
+            phases.append(Phase("quiet stance", frame(limit_s), frame(events[0][1])))
+        bounds = [e[1] for e in events] + [fl.takeoff_s]
+        for (name, start), end in zip(events, bounds[1:]):
+            phases.append(Phase(name, frame(start), frame(end)))
+        phases.append(Phase("flight", frame(fl.takeoff_s), frame(fl.touchdown_s)))
+        # Landing: from touchdown until the body stops descending.
+        next_to = flights[k + 1].takeoff_s if k + 1 < len(flights) else float(t_s[-1])
+        i_td = index_at(fl.touchdown_s)
+        land_end = float("nan")
+        for i in range(i_td, index_at(next_to)):
+            if vz[i] <= 0 < vz[i + 1]:
+                land_end = float(t_s[i] + (t_s[i + 1] - t_s[i]) * (-vz[i] / (vz[i + 1] - vz[i])))
+                break
+        if not np.isfinite(land_end):
+            land_end = float(t_s[-1]) if k + 1 == len(flights) else fl.touchdown_s
+        landing_ends.append(land_end)
+        phases.append(Phase("landing", frame(fl.touchdown_s), frame(land_end)))
+        # Recovery: until the load has stayed near 1 g for a while (or the next jump begins).
+        dt = float(t_s[1] - t_s[0])
+        need = max(int(round(RECOVERY_SETTLED_S / dt)), 1)
+        near = np.abs(load - 1.0) < drop
+        rec_end = float(t_s[-1])
+        i = index_at(land_end)
+        while i + need <= t_s.size:
+            if near[i:i + need].all():
+                rec_end = float(t_s[i])
+                break
+            i += 1
+        if k + 1 < len(flights):
+            rec_end = min(rec_end, flights[k + 1].takeoff_s)
+        if rec_end > land_end:
+            phases.append(Phase("recovery", frame(land_end), frame(rec_end)))
+        limit_s = max(rec_end, land_end)
+    if flights and limit_s < float(t_s[-1]):
+        phases.append(Phase("quiet stance", frame(limit_s), frame(float(t_s[-1]))))
+    return phases, landing_ends
