@@ -1,0 +1,25 @@
+"""Blender layer: registration in one place, symmetric (everything added is removed in reverse)."""
+import bpy
+
+from . import analyze, panels, properties
+
+classes = (*properties.classes, *analyze.classes, *panels.classes)
+
+_cli_handles = []
+
+
+def register():
+    for cls in classes:
+        bpy.utils.register_class(cls)
+    bpy.types.Object.overlap_assist = bpy.props.PointerProperty(type=properties.OverlapAssistSettings)
+    if hasattr(bpy.utils, "register_cli_command"):
+        from .. import cli
+        _cli_handles.append(bpy.utils.register_cli_command("overlap_assist", cli.blender_command))
+
+
+def unregister():
+    while _cli_handles:
+        bpy.utils.unregister_cli_command(_cli_handles.pop())
+    del bpy.types.Object.overlap_assist
+    for cls in reversed(classes):
+        bpy.utils.unregister_class(cls)

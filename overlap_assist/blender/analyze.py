@@ -1,0 +1,106 @@
+"""Analyze Body Motion: sample → core analysis → load curve, markers, summary."""
+import json
+
+import bpy
+import numpy as np
+
+from ..core.body_analysis import analyse_body, analysis_to_dict
+from ..core.errors import OverlapAssistError
+from . import anim_data
+from .sample_body import body_samples
+
+LOAD_PROPERTY = "overlap_load_g"
+"""Custom property on the armature object whose F-curve shows the load factor."""
+LOAD_GROUP = "Overlap Load"
+MARKER_EVENTS = (("takeoff_frame", "takeoff"), ("apex_frame", "apex"), ("touchdown_frame", "touchdown"))
+CAUTION = "Figures are for animation plausibility only, not biomechanical or medical assessment"
+
+
+def run_analysis(obj, scene, progress=None):
+    """Sample the rig and analyse it. Returns (BodyAnalysis, warnings)."""
+    settings = obj.overlap_assist.body
+    samples, warnings = body_samples(obj, scene, settings, progress)
+    result = analyse_body(samples, settings.analysis_settings())
+    return result, warnings + list(result.warnings)
+
+
+def write_load_curve(obj, result):
+    """Key the load factor on a custom property of the object (bone animation is not touched)."""
+    if LOAD_PROPERTY not in obj.keys():
+        obj[LOAD_PROPERTY] = 1.0
+    bag = anim_data.active_fcurves(obj, create=True)
+    fc = anim_data.ensure_fcurve(bag, f'["{LOAD_PROPERTY}"]', 0, LOAD_GROUP)
+    anim_data.write_keys(fc, result.frames, result.load_factor, 'LINEAR')
+    return fc
+
+
+def write_markers(obj, scene, result):
+    """Replace this object's earlier event markers with takeoff/apex/touchdown of each flight."""
+    settings = obj.overlap_assist.body
+    # Ours are recognised by name and frame, so a user's marker that shares a name is kept.
+    owned = {tuple(x) for x in json.loads(settings.owned_markers or "[]")}
+    for m in list(scene.timeline_markers):
+        if (m.name, m.frame) in owned:
+            scene.timeline_markers.remove(m)
+    names = []
+    for k, fl in enumerate(result.flights):
+        suffix = "" if len(result.flights) == 1 else f" {k + 1}"
+        for attr, label in MARKER_EVENTS:
+            name = f"{label}{suffix}"
+            frame = int(round(getattr(fl, attr)))
+            scene.timeline_markers.new(name, frame=frame)
+            names.append((name, frame))
+    settings.owned_markers = json.dumps(names)
+    return names
+
+
+def summary_line(result):
+    if not result.flights:
+        return f"No flight found; load {result.load_factor.min():.2f}–{result.load_factor.max():.2f} g"
+    parts = []
+    for fl in result.flights:
+        parts.append(f"takeoff {fl.takeoff_frame:.1f}, apex {fl.apex_frame:.1f}, touchdown {fl.touchdown_frame:.1f}: "
+                     f"hang {fl.hang_time_s:.2f} s, {fl.verdict}")
+    if result.landings:
+        parts.append(f"landing peak {max(x.peak_load_g for x in result.landings):.1f} g")
+    return "; ".join(parts)
+
+
+class OVERLAP_ASSIST_OT_analyze_motion(bpy.types.Operator):
+    """Sample the rig's body motion and show the load it feels, its jump phases and a flight check"""
+    bl_idname = "overlap_assist.analyze_motion"
+    bl_label = "Analyze Body Motion"
+    bl_options = {'REGISTER', 'UNDO'}
+
+    @classmethod
+    def poll(cls, context):
+        obj = context.active_object
+        if obj is None or obj.type != 'ARMATURE':
+            cls.poll_message_set("Select the character's armature")
+            return False
+        return True
+
+    def execute(self, context):
+        obj, scene = context.active_object, context.scene
+        wm = context.window_manager
+        wm.progress_begin(0, 100)
+        try:
+            result, warnings = run_analysis(obj, scene, lambda f: wm.progress_update(int(100 * f)))
+        except OverlapAssistError as exc:
+            self.report({'ERROR'}, str(exc))
+            return {'CANCELLED'}
+        finally:
+            wm.progress_end()
+        write_load_curve(obj, result)
+        write_markers(obj, scene, result)
+        summary = analysis_to_dict(result)
+        summary.pop("frames"), summary.pop("load_factor")
+        summary["warnings"] = warnings
+        obj.overlap_assist.body.last_summary = json.dumps(summary)
+        for w in warnings:
+            self.report({'WARNING'}, w)
+        self.report({'INFO'}, summary_line(result))
+        return {'FINISHED'}
+
+
+classes = (OVERLAP_ASSIST_OT_analyze_motion,)

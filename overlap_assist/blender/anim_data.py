@@ -1,0 +1,93 @@
+"""The one place that knows how actions store F-curves across Blender versions.
+
+Blender 4.5 has slotted actions but still offers ``action.fcurves``; 5.x has only slots →
+layers → strips → channelbags. Everything here goes through slots and channelbags, which work
+on 4.5 to 5.3, and assigns slots explicitly (an unmatched slot silently animates nothing).
+"""
+import bpy
+
+
+def assigned_slot(id_data):
+    ad = id_data.animation_data
+    return getattr(ad, "action_slot", None) if ad else None
+
+
+def channelbag_for(action, slot, create=False):
+    """The channelbag of ``slot`` in ``action`` (None if absent and not ``create``)."""
+    if not action.layers:
+        if not create:
+            return None
+        action.layers.new("Layer")
+    layer = action.layers[0]
+    if not layer.strips:
+        if not create:
+            return None
+        layer.strips.new(type='KEYFRAME')
+    strip = layer.strips[0]
+    return strip.channelbag(slot, ensure=create)
+
+
+def ensure_slot(action, id_data):
+    """A slot of ``action`` for ``id_data`` (its name), created if missing."""
+    for slot in action.slots:
+        if slot.target_id_type == id_data.id_type and slot.name_display == id_data.name:
+            return slot
+    return action.slots.new(id_type=id_data.id_type, name=id_data.name)
+
+
+def active_fcurves(id_data, create=False):
+    """F-curves of the action and slot currently animating ``id_data`` (creating them if asked)."""
+    ad = id_data.animation_data
+    if ad is None:
+        if not create:
+            return None
+        ad = id_data.animation_data_create()
+    act = ad.action
+    if act is None:
+        if not create:
+            return None
+        act = bpy.data.actions.new(id_data.name + "Action")
+        ad.action = act
+    slot = ad.action_slot
+    if slot is None:
+        if not create:
+            return None
+        slot = ensure_slot(act, id_data)
+        ad.action_slot = slot
+    bag = channelbag_for(act, slot, create=create)
+    return None if bag is None else bag
+
+
+def ensure_fcurve(bag, data_path, index=0, group_name=""):
+    """Find or create an F-curve in a channelbag (4.5 has no ``group_name`` keyword)."""
+    fc = bag.fcurves.find(data_path, index=index)
+    if fc is None:
+        fc = bag.fcurves.new(data_path, index=index)
+        if group_name:
+            fc.group = bag.groups.get(group_name) or bag.groups.new(group_name)
+    return fc
+
+
+def write_keys(fc, frames, values, interpolation='LINEAR'):
+    """Replace all keys of ``fc`` with (frame, value) pairs in one bulk write."""
+    import numpy as np
+    fc.keyframe_points.clear()
+    n = len(frames)
+    fc.keyframe_points.add(n)
+    co = np.empty(2 * n, dtype=np.float32)
+    co[0::2] = frames
+    co[1::2] = values
+    fc.keyframe_points.foreach_set("co", co)
+    interp = bpy.types.Keyframe.bl_rna.properties["interpolation"].enum_items[interpolation].value
+    fc.keyframe_points.foreach_set("interpolation", np.full(n, interp, dtype=np.int32))
+    fc.update()
+
+
+def all_action_fcurves(action):
+    """Every F-curve of every slot of ``action`` (for snapshots and key checks)."""
+    out = []
+    for layer in action.layers:
+        for strip in layer.strips:
+            for bag in strip.channelbags:
+                out.extend(bag.fcurves)
+    return out

@@ -1,0 +1,82 @@
+"""Settings stored on the armature object (``Object.overlap_assist``); they survive save/reload.
+
+Defaults come from ``core.constants`` so UI and core cannot drift apart. ``body_settings`` is
+the only bridge from these properties to the core's settings types.
+"""
+import bpy
+from bpy.props import BoolProperty, EnumProperty, FloatProperty, IntProperty, StringProperty
+
+from ..core import constants as C
+from ..core.body_types import AnalysisSettings
+
+BODY_SOURCES = (
+    ("ROOT", "Root bone", "Use one bone (the hips or root) as the body"),
+    ("COM", "Centre of mass", "Estimate the whole-body centre of mass from deform bones with a segment table"),
+)
+SEGMENT_TABLES = (
+    ("dempster", "Dempster (Winter 2009)", "Dempster 1955 cadaver data as tabulated by Winter 2009, Table 4.1"),
+    ("de_leva_male", "de Leva 1996, male", "de Leva 1996, Table 4, males"),
+    ("de_leva_female", "de Leva 1996, female", "de Leva 1996, Table 4, females"),
+)
+GRAVITY_SOURCES = (
+    ("SCENE", "Scene gravity", "The scene's gravity vector (Scene Properties > Gravity), in scene units"),
+    ("STANDARD", "Standard gravity", "9.80665 m/s² straight down, whatever the scene says"),
+)
+
+
+class OverlapAssistBodySettings(bpy.types.PropertyGroup):
+    body_source: EnumProperty(name="Body", items=BODY_SOURCES, default="ROOT",
+                              description="What stands for the body's motion")
+    body_bone: StringProperty(name="Root bone", default="",
+                              description="Bone that carries the body (empty: a bone named like hips or pelvis, "
+                                          "else the first top-level bone)")
+    segment_table: EnumProperty(name="Segment table", items=SEGMENT_TABLES, default="dempster",
+                                description="Mass share and centre of mass of each body segment")
+    bone_overrides: StringProperty(
+        name="Bone overrides", default="",
+        description="Manual bone choices for the centre of mass, e.g. 'thigh.L=LegUp_L, hand.R=Palm_R'")
+    gravity_source: EnumProperty(name="Gravity", items=GRAVITY_SOURCES, default="SCENE",
+                                 description="Which gravity the body motion is compared with")
+    samples_per_frame: IntProperty(name="Samples per frame", default=C.SAMPLES_PER_FRAME, min=1, max=16,
+                                   description="Sub-frame samples: more gives sharper takeoff and touchdown times")
+    smoothing_window: FloatProperty(name="Smoothing (frames)", default=C.SMOOTHING_WINDOW_FRAMES,
+                                    min=0.25, max=10.0, description="Savitzky–Golay window span in frames; "
+                                    "raise it for noisy motion capture")
+    smoothing_order: IntProperty(name="Smoothing order", default=C.SMOOTHING_ORDER, min=1, max=6,
+                                 description="Degree of the polynomial fitted in each window (2 is exact for flight)")
+    flight_threshold: FloatProperty(name="Flight threshold (g)", default=C.FLIGHT_LOAD_MAX, min=0.05, max=0.95,
+                                    description="Load below which the body may be airborne")
+    spline_blocked_keys: BoolProperty(
+        name="Analyse blocked keys as splines", default=False,
+        description="Evaluate stepped/constant keys as if they were Bézier, without changing the action")
+    use_frame_range: BoolProperty(name="Custom range", default=False,
+                                  description="Analyse a chosen range instead of the scene's frame range")
+    frame_start: IntProperty(name="Start", default=1)
+    frame_end: IntProperty(name="End", default=250)
+    owned_markers: StringProperty(name="Markers", default="", options={'HIDDEN'},
+                                  description="Names of the timeline markers the last analysis set (JSON)")
+    last_summary: StringProperty(name="Last result", default="",
+                                 description="JSON summary of the last analysis (shown in the panel)")
+
+    def analysis_settings(self) -> AnalysisSettings:
+        return AnalysisSettings(smoothing_window_frames=self.smoothing_window,
+                                smoothing_order=self.smoothing_order,
+                                flight_load_max=self.flight_threshold)
+
+    def overrides(self) -> dict:
+        """Parse 'role=bone, role=bone' into a dict (blank entries ignored)."""
+        out = {}
+        for item in self.bone_overrides.split(","):
+            if "=" in item:
+                role, bone = (s.strip() for s in item.split("=", 1))
+                if role and bone:
+                    out[role] = bone
+        return out
+
+
+class OverlapAssistSettings(bpy.types.PropertyGroup):
+    """Everything Overlap Assist stores on one armature object."""
+    body: bpy.props.PointerProperty(type=OverlapAssistBodySettings)
+
+
+classes = (OverlapAssistBodySettings, OverlapAssistSettings)
