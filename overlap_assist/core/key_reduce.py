@@ -1,0 +1,442 @@
+"""Error-bounded key reduction: per-frame channel values -> a few Bézier keys with explicit handles.
+
+Why the error check can be exact without Blender
+-------------------------------------------------
+Blender evaluates an F-curve Bézier segment between keys ``(x0, y0)`` and ``(x1, y1)`` by solving
+``x(t) = frame`` for the curve parameter ``t`` and returning ``y(t)``. When the right handle of the
+first key sits at ``x0 + (x1 - x0)/3`` and the left handle of the second key at ``x1 - (x1 - x0)/3``,
+``x(t)`` is linear in ``t`` and the segment is exactly the cubic Hermite polynomial in the frame
+with end slopes ``(h0R.y - y0) / ((x1 - x0)/3)`` and ``(y1 - h1L.y) / ((x1 - x0)/3)``. Every curve
+written here has its handles at those thirds, so :func:`evaluate_keys` computes what Blender's
+``FCurve.evaluate`` computes, up to Blender's float32 storage (see ``FLOAT32_MARGIN_REL``).
+
+Algorithm
+---------
+1. Slopes at every input frame from the data: second-order finite differences (the local
+   quadratic through three neighbouring samples, also on uneven frame spacing; ``numpy.gradient``
+   with ``edge_order=2``).
+2. Keys at the first and last frame; then recursive splitting: a segment whose Hermite curve misses
+   any interior frame by more than the tolerance is split at the frame of largest error, in the
+   spirit of Ramer (1972) and Douglas & Peucker (1973), but with cubic Hermite segments instead of
+   chords and the value error at each frame instead of a perpendicular distance. The accepted
+   error is the tolerance less a small allowance for Blender's float32 evaluation. All pending
+   segments of all curves are tested together, one numpy pass per level of the split tree.
+3. Every key keeps its exact sample value and its data slope on both sides, so the curve is C1
+   and the handles can be ``ALIGNED``.
+4. The result is re-evaluated with :func:`evaluate_keys` at every input frame; a curve that fails
+   (not expected; rounding only) falls back to a key on every frame.
+
+References
+----------
+Ramer U. 1972, "An iterative procedure for the polygonal approximation of plane curves",
+Computer Graphics and Image Processing 1(3):244-256.
+Douglas D. & Peucker T. 1973, "Algorithms for the reduction of the number of points required to
+represent a digitized line or its caricature", The Canadian Cartographer 10(2):112-122.
+Fornberg B. 1988, "Generation of finite difference formulas on arbitrarily spaced grids",
+Mathematics of Computation 51(184):699-706 (the three-point slope weights used by numpy.gradient).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from .errors import InputError
+
+__all__ = [
+    "ReducedCurve",
+    "evaluate_keys",
+    "reduce_curves",
+    "reduce_quaternion_curves",
+    "reduce_euler_curves",
+    "FLOAT32_MARGIN_REL",
+]
+
+# Part of the tolerance reserved for Blender storing keys and handles as float32 and solving
+# x(t) = frame in single precision: the margin is FLOAT32_MARGIN_REL x (value scale + largest
+# slope x largest |frame|), the second term because a handle frame is rounded to float32 and
+# shifts the solved t. Measured on bpy 4.5.15 and 5.2.3 (reduced damped sines, frames 0..100400):
+# |FCurve.evaluate - evaluate_keys| <= 0.82 x 2**-24 x that scale, so 2**-20 leaves ~20x.
+FLOAT32_MARGIN_REL = 2.0**-20
+
+# Relative tolerance for "handles sit at one third of the segment" in evaluate_keys: float32
+# key storage rounds a handle frame near 1000 by ~6e-5 frames, so allow 1e-4 of a segment.
+_THIRD_PLACEMENT_RTOL = 1e-4
+
+_HANDLE_TYPES = ("ALIGNED", "FREE")
+
+
+@dataclass(frozen=True, slots=True)
+class ReducedCurve:
+    """One F-curve after reduction: Bézier keys with explicit handles at one third of each segment.
+
+    Write with interpolation ``'BEZIER'`` and ``handle_left_type = handle_right_type = handle_type``.
+    Arrays are read-only copies.
+    """
+
+    key_frames: np.ndarray
+    """shape (n_keys,), frames of the keys, strictly increasing."""
+    key_values: np.ndarray
+    """shape (n_keys,), values at the keys (channel units: radians, quaternion component, ...)."""
+    handle_left: np.ndarray
+    """shape (n_keys, 2), left handle of each key as (frame, value)."""
+    handle_right: np.ndarray
+    """shape (n_keys, 2), right handle of each key as (frame, value)."""
+    handle_type: str
+    """'ALIGNED' when left handle, key and right handle lie on one line (C1 curve), else 'FREE'."""
+    n_keys_before: int
+    """Number of per-frame samples the curve was reduced from."""
+    max_error: float
+    """max |evaluate_keys(curve, frames) - values| over the input frames, in channel units."""
+
+    def __post_init__(self) -> None:
+        arrays = {}
+        for name, ndim in (("key_frames", 1), ("key_values", 1), ("handle_left", 2), ("handle_right", 2)):
+            arr = np.array(getattr(self, name), dtype=np.float64)  # copy: never alias caller data
+            if arr.ndim != ndim:
+                raise InputError(f"ReducedCurve.{name} must have {ndim} dimension(s), got shape {arr.shape}")
+            arr.flags.writeable = False
+            arrays[name] = arr
+        n_keys = arrays["key_frames"].shape[0]
+        if n_keys < 1:
+            raise InputError("ReducedCurve needs at least one key")
+        if arrays["key_values"].shape != (n_keys,) or any(
+            arrays[h].shape != (n_keys, 2) for h in ("handle_left", "handle_right")
+        ):
+            raise InputError("ReducedCurve arrays disagree on the number of keys")
+        if np.any(np.diff(arrays["key_frames"]) <= 0.0):
+            raise InputError("ReducedCurve.key_frames must be strictly increasing")
+        if self.handle_type not in _HANDLE_TYPES:
+            raise InputError(f"handle_type must be one of {_HANDLE_TYPES}, got {self.handle_type!r}")
+        for name, arr in arrays.items():
+            object.__setattr__(self, name, arr)
+
+    @property
+    def n_keys_after(self) -> int:
+        """Number of keys written."""
+        return int(self.key_frames.shape[0])
+
+    @property
+    def reduction(self) -> float:
+        """Fraction of keys removed, 0 (none) .. just under 1."""
+        return 1.0 - self.n_keys_after / self.n_keys_before
+
+
+# ---------------------------------------------------------------------------------------------
+# Evaluation (what Blender computes for third-placed handles)
+# ---------------------------------------------------------------------------------------------
+
+def _hermite(s, h, y0, m0, y1, m1):
+    """Cubic Hermite on s in [0, 1] over a segment of h frames; y*, m* broadcast against s."""
+    one_minus_s = 1.0 - s
+    h00 = (1.0 + 2.0 * s) * one_minus_s * one_minus_s
+    h10 = s * one_minus_s * one_minus_s
+    h01 = s * s * (3.0 - 2.0 * s)
+    h11 = s * s * (s - 1.0)
+    return h00 * y0 + h10 * h * m0 + h01 * y1 + h11 * h * m1
+
+
+def evaluate_keys(curve: ReducedCurve, frames) -> np.ndarray:
+    """Evaluate a reduced curve the way Blender evaluates the written F-curve.
+
+    Parameters
+    ----------
+    curve : ReducedCurve
+        Keys whose handles sit at one third of each neighbouring segment (checked).
+    frames : array_like, shape (n,)
+        Frames at which to evaluate (any floats).
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        Values. Inside the key range: the cubic Hermite polynomial of each segment, slopes taken
+        from the handles; exactly the key value on a key frame. Outside: the first or last key
+        value (Blender's default constant extrapolation).
+
+    Raises
+    ------
+    InputError
+        If a handle is not at one third of its segment: then Blender's x(t) is not linear and this
+        evaluation would not match Blender's.
+    """
+    x_keys = curve.key_frames
+    y_keys = curve.key_values
+    frames = np.asarray(frames, dtype=np.float64)
+    if x_keys.shape[0] == 1:
+        return np.full(frames.shape, y_keys[0])
+    h = np.diff(x_keys)
+    right_dx = curve.handle_right[:-1, 0] - x_keys[:-1]
+    left_dx = x_keys[1:] - curve.handle_left[1:, 0]
+    third = h / 3.0
+    off_third = np.maximum(np.abs(right_dx - third), np.abs(left_dx - third))
+    if np.any(off_third > _THIRD_PLACEMENT_RTOL * third):
+        raise InputError("evaluate_keys needs handles at one third of each segment")
+    slope_out = (curve.handle_right[:-1, 1] - y_keys[:-1]) / third  # slope leaving key j
+    slope_in = (y_keys[1:] - curve.handle_left[1:, 1]) / third      # slope arriving at key j+1
+
+    seg = np.clip(np.searchsorted(x_keys, frames, side="right") - 1, 0, x_keys.shape[0] - 2)
+    s = (frames - x_keys[seg]) / h[seg]
+    out = _hermite(s, h[seg], y_keys[seg], slope_out[seg], y_keys[seg + 1], slope_in[seg])
+    out = np.where(frames <= x_keys[0], y_keys[0], out)
+    out = np.where(frames >= x_keys[-1], y_keys[-1], out)
+    nearest = np.minimum(np.searchsorted(x_keys, frames), x_keys.shape[0] - 1)
+    return np.where(x_keys[nearest] == frames, y_keys[nearest], out)
+
+
+# ---------------------------------------------------------------------------------------------
+# Errors between an evaluated group of channels and the samples, per frame
+# ---------------------------------------------------------------------------------------------
+
+def _abs_error(evaluated: np.ndarray, target: np.ndarray) -> np.ndarray:
+    """Largest absolute component error, shape (m, c) -> (m,)."""
+    diff = np.abs(evaluated - target)
+    return diff[:, 0] if diff.shape[1] == 1 else np.max(diff, axis=1)
+
+
+def _quaternion_angle_error(evaluated: np.ndarray, target: np.ndarray) -> np.ndarray:
+    """Rotation angle (rad) between normalised evaluated quaternions and unit targets, (m, 4) -> (m,).
+
+    Equals 2 acos(|q_eval/|q_eval| . q|); computed as 4 atan2(|a - b|, |a + b|) with b on a's
+    hemisphere, which keeps full precision for small angles where acos does not.
+    """
+    norm = np.linalg.norm(evaluated, axis=-1, keepdims=True)
+    a = evaluated / np.maximum(norm, 1e-300)
+    sign = np.where(np.sum(a * target, axis=-1, keepdims=True) < 0.0, -1.0, 1.0)
+    b = target * sign
+    return 4.0 * np.arctan2(np.linalg.norm(a - b, axis=-1), np.linalg.norm(a + b, axis=-1))
+
+
+# ---------------------------------------------------------------------------------------------
+# Reduction
+# ---------------------------------------------------------------------------------------------
+
+def _validate(frames, values, tolerance, name: str) -> tuple[np.ndarray, np.ndarray, float]:
+    frames = np.array(frames, dtype=np.float64)
+    values = np.array(values, dtype=np.float64)
+    if frames.ndim != 1 or frames.shape[0] < 1:
+        raise InputError(f"frames must be a non-empty 1-D array, got shape {frames.shape}")
+    if not np.all(np.isfinite(frames)) or np.any(np.diff(frames) <= 0.0):
+        raise InputError("frames must be finite and strictly increasing")
+    if values.shape[1:2] != frames.shape:
+        raise InputError(f"{name} has shape {values.shape}; its frame axis must match {frames.shape[0]} frames")
+    if not np.all(np.isfinite(values)):
+        raise InputError(f"{name} contains NaN or infinite values")
+    tolerance = float(tolerance)
+    if not (np.isfinite(tolerance) and tolerance >= 0.0):
+        raise InputError(f"tolerance must be finite and >= 0, got {tolerance}")
+    return frames, values, tolerance
+
+
+def _data_slopes(frames: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Slopes d(value)/d(frame) along axis 1, values shape (g, n, c); Fornberg 1988 3-point weights."""
+    n = frames.shape[0]
+    if n == 1:
+        return np.zeros_like(values)
+    return np.gradient(values, frames, axis=1, edge_order=2 if n >= 3 else 1)
+
+
+def _split_keys(frames, values, slopes, tol_eff, error_fn) -> list[np.ndarray]:
+    """Recursive max-error splitting of Hermite segments, all groups and segments per numpy pass.
+
+    Parameters
+    ----------
+    frames : shape (n,)
+    values, slopes : shape (g, n, c), a group of c channels shares its keys
+    tol_eff : shape (g,), largest accepted error per group
+    error_fn : (m, c), (m, c) -> (m,) per-frame error
+
+    Returns
+    -------
+    list of g int arrays, sorted key frame indices per group (always first and last frame).
+    """
+    n_groups, n_frames, n_channels = values.shape
+    flat_values = values.reshape(-1, n_channels)
+    flat_slopes = slopes.reshape(-1, n_channels)
+    groups = np.arange(n_groups)
+    key_g = [groups, groups]
+    key_i = [np.zeros(n_groups, dtype=np.intp), np.full(n_groups, n_frames - 1, dtype=np.intp)]
+    seg_g, seg_lo, seg_hi = groups, key_i[0], key_i[1]
+    while seg_g.size:
+        n_inner = seg_hi - seg_lo - 1
+        has_inner = n_inner > 0
+        seg_g, seg_lo, seg_hi, n_inner = seg_g[has_inner], seg_lo[has_inner], seg_hi[has_inner], n_inner[has_inner]
+        if not seg_g.size:
+            break
+        # Per segment: the Hermite cubic as a polynomial in s = (frame - x0) / h (Horner form).
+        lo_flat, hi_flat = seg_g * n_frames + seg_lo, seg_g * n_frames + seg_hi
+        x0 = frames[seg_lo]
+        h = frames[seg_hi] - x0
+        y0, y1 = flat_values[lo_flat], flat_values[hi_flat]
+        hm0, hm1 = flat_slopes[lo_flat] * h[:, None], flat_slopes[hi_flat] * h[:, None]
+        rise = y1 - y0
+        c2 = 3.0 * rise - 2.0 * hm0 - hm1
+        c3 = hm0 + hm1 - 2.0 * rise
+        # Interior frames of all segments, concatenated; sid maps each back to its segment.
+        starts = np.concatenate(([0], np.cumsum(n_inner)[:-1]))
+        sid = np.repeat(np.arange(seg_g.size), n_inner)
+        pos = np.arange(sid.size)
+        idx = (seg_lo + 1 - starts)[sid] + pos
+        s = ((frames[idx] - x0[sid]) / h[sid])[:, None]
+        fitted = y0[sid] + s * (hm0[sid] + s * (c2[sid] + s * c3[sid]))
+        err = error_fn(fitted, flat_values[(lo_flat + 1 - starts)[sid] + pos])
+        seg_max = np.maximum.reduceat(err, starts)
+        bad = seg_max > tol_eff[seg_g]
+        if not bad.any():
+            break
+        first_max = np.minimum.reduceat(np.where(err == seg_max[sid], pos, pos.size), starts)
+        split = idx[first_max[bad]]
+        key_g.append(seg_g[bad])
+        key_i.append(split)
+        seg_g = np.concatenate((seg_g[bad], seg_g[bad]))
+        seg_lo, seg_hi = np.concatenate((seg_lo[bad], split)), np.concatenate((split, seg_hi[bad]))
+    flat = np.unique(np.concatenate(key_g) * n_frames + np.concatenate(key_i))
+    g_of, i_of = np.divmod(flat, n_frames)
+    return np.split(i_of, np.searchsorted(g_of, np.arange(1, n_groups)))
+
+
+def _build_curve(frames, values, slopes, key_idx) -> tuple[ReducedCurve, np.ndarray]:
+    """One channel (values, slopes shape (n,)) keyed at key_idx, handles at thirds.
+
+    Returns the curve and its evaluation at ``frames``.
+    """
+    x = frames[key_idx]
+    y = values[key_idx]
+    m = slopes[key_idx]
+    if x.shape[0] > 1:
+        h = np.diff(x)
+        left_dx = np.concatenate(([h[0]], h)) / 3.0   # outer handles mirror the inner ones
+        right_dx = np.concatenate((h, [h[-1]])) / 3.0
+    else:
+        left_dx = right_dx = np.full(1, 1.0 / 3.0)  # lone key: 1/3 frame, irrelevant to evaluation
+    curve = ReducedCurve(
+        key_frames=x,
+        key_values=y,
+        handle_left=np.stack((x - left_dx, y - m * left_dx), axis=1),
+        handle_right=np.stack((x + right_dx, y + m * right_dx), axis=1),
+        handle_type="ALIGNED",
+        n_keys_before=frames.shape[0],
+        max_error=float("nan"),
+    )
+    evaluated = evaluate_keys(curve, frames)
+    return replace(curve, max_error=float(np.max(np.abs(evaluated - values)))), evaluated
+
+
+def _reduce_groups(frames, values, tolerance, margin, error_fn) -> list[list[ReducedCurve]]:
+    """Shared driver: values (g, n, c) -> per group, c curves sharing their key frames."""
+    n_groups, n_frames, n_channels = values.shape
+    slopes = _data_slopes(frames, values)
+    all_frames = np.arange(n_frames)
+    if tolerance == 0.0:
+        key_sets = [all_frames] * n_groups
+    else:
+        key_sets = _split_keys(frames, values, slopes, np.maximum(tolerance - margin, 0.0), error_fn)
+    result = []
+    for g in range(n_groups):
+        keys = key_sets[g]
+        while True:
+            built = [_build_curve(frames, values[g, :, c], slopes[g, :, c], keys) for c in range(n_channels)]
+            evaluated = np.stack([e for _, e in built], axis=1)
+            if keys.shape[0] == n_frames or np.max(error_fn(evaluated, values[g])) <= tolerance:
+                break
+            keys = all_frames  # guarantee: not expected to happen, rounding only
+        result.append([curve for curve, _ in built])
+    return result
+
+
+def _float32_margin(frames: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Allowance for Blender's float32 evaluation per group, values shape (g, n, c) -> (g,)."""
+    value_scale = np.max(np.abs(values), axis=(1, 2)) + np.max(np.ptp(values, axis=1), axis=-1)
+    slope_scale = np.max(np.abs(_data_slopes(frames, values)), axis=(1, 2))
+    return FLOAT32_MARGIN_REL * (value_scale + slope_scale * (np.max(np.abs(frames)) + 1.0))
+
+
+def reduce_curves(frames, values, tolerance: float) -> list[ReducedCurve]:
+    """Reduce per-frame samples of independent channels to Bézier keys within a value tolerance.
+
+    Parameters
+    ----------
+    frames : array_like, shape (n_frames,)
+        Sample frames, strictly increasing (usually consecutive integers).
+    values : array_like, shape (n_curves, n_frames)
+        Sampled channel values.
+    tolerance : float
+        Largest allowed |curve - sample| at every input frame, in the channel's units (>= 0).
+        0 keeps a key on every frame. A tolerance below what Blender's float32 evaluation can
+        hold (see ``FLOAT32_MARGIN_REL``) also keeps (nearly) every frame.
+
+    Returns
+    -------
+    list of ReducedCurve, one per row of ``values``.
+
+    Raises
+    ------
+    InputError
+        On wrong shapes, non-increasing frames, NaN/inf values or a negative tolerance.
+
+    References
+    ----------
+    Ramer 1972; Douglas & Peucker 1973 (split at the largest error); see the module docstring.
+    """
+    frames, values, tolerance = _validate(frames, values, tolerance, "values")
+    if values.ndim != 2:
+        raise InputError(f"values must have shape (n_curves, n_frames), got {values.shape}")
+    grouped = values[:, :, None]
+    return [group[0] for group in _reduce_groups(frames, grouped, tolerance, _float32_margin(frames, grouped), _abs_error)]
+
+
+def reduce_euler_curves(frames, eulers, tolerance_rad: float) -> list[ReducedCurve]:
+    """Reduce an Euler rotation (x, y, z) with one shared set of key frames.
+
+    Parameters
+    ----------
+    frames : array_like, shape (n_frames,)
+    eulers : array_like, shape (n_frames, 3), radians
+    tolerance_rad : float
+        Largest allowed error of each axis at every input frame, radians.
+
+    Returns
+    -------
+    list of 3 ReducedCurve (x, y, z) with identical ``key_frames``.
+    """
+    frames, eulers, tolerance_rad = _validate(frames, np.asarray(eulers, dtype=np.float64).T, tolerance_rad, "eulers.T")
+    if eulers.shape[0] != 3:
+        raise InputError(f"eulers must have shape (n_frames, 3), got {eulers.T.shape}")
+    grouped = eulers.T[None]  # (1, n_frames, 3)
+    return _reduce_groups(frames, grouped, tolerance_rad, _float32_margin(frames, grouped), _abs_error)[0]
+
+
+def reduce_quaternion_curves(frames, quats, tolerance_rad: float) -> list[ReducedCurve]:
+    """Reduce a quaternion rotation (w, x, y, z) with shared key frames and an angular error bound.
+
+    The samples are normalised and, where needed, negated so consecutive frames lie on the same
+    hemisphere (q and -q are the same rotation; interpolating across a sign flip would not be).
+    The written curves then stay within ``tolerance_rad`` of the samples as rotations:
+    2 acos(|q_eval / |q_eval| . q|) <= tolerance_rad at every frame, Blender normalising the
+    evaluated quaternion as it does for the pose.
+
+    Parameters
+    ----------
+    frames : array_like, shape (n_frames,)
+    quats : array_like, shape (n_frames, 4), (w, x, y, z), non-zero
+    tolerance_rad : float
+        Largest allowed rotation angle between curve and sample at every input frame, radians.
+
+    Returns
+    -------
+    list of 4 ReducedCurve (w, x, y, z) with identical ``key_frames``; their ``key_values`` are
+    the normalised, hemisphere-continuous samples.
+    """
+    frames, quats_t, tolerance_rad = _validate(frames, np.asarray(quats, dtype=np.float64).T, tolerance_rad, "quats.T")
+    if quats_t.shape[0] != 4:
+        raise InputError(f"quats must have shape (n_frames, 4), got {quats_t.T.shape}")
+    q = quats_t.T
+    norm = np.linalg.norm(q, axis=1, keepdims=True)
+    if np.any(norm < 1e-6):
+        raise InputError("quats contains a zero-length quaternion")
+    q = q / norm
+    flips = np.concatenate(([False], np.sum(q[1:] * q[:-1], axis=1) < 0.0))
+    q = q * np.where(np.cumsum(flips) % 2 == 1, -1.0, 1.0)[:, None]
+    # An error e in each of the 4 components moves the quaternion by at most 2e and the rotation
+    # angle by about twice that.
+    margin_rad = 4.0 * _float32_margin(frames, q[None])
+    return _reduce_groups(frames, q[None], tolerance_rad, margin_rad, _quaternion_angle_error)[0]
