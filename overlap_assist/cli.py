@@ -28,6 +28,8 @@ def build_parser():
     a.add_argument("--armature", help="armature object name (default: the only armature)")
     a.add_argument("--body", choices=("root", "com"), help="body source: root bone or centre of mass")
     a.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
+    d = sub.add_parser("demo", help="build our demo character and jumps, analyse them, write the outputs")
+    d.add_argument("--out", default="out/demo", help="output folder (created; existing outputs are replaced)")
     return p
 
 
@@ -121,7 +123,43 @@ def cmd_analyze(args, out):
     return 0
 
 
-COMMANDS = {"analyze": cmd_analyze}
+def write_atomic(path, text):
+    """Write ``text`` to ``path`` through a temporary file and a rename (no half-written outputs)."""
+    tmp = f"{path}.tmp{os.getpid()}"
+    with open(tmp, "w", encoding="utf-8") as f:
+        f.write(text)
+    os.replace(tmp, path)
+
+
+def cmd_demo(args, out):
+    bpy = import_bpy()
+    from .blender.analyze import CAUTION, run_analysis, summary_line, write_load_curve, write_markers
+    from .blender.demo_scene import DEMO_CLIPS, build_demo_scene
+    from .core.body_analysis import analysis_to_dict
+    os.makedirs(args.out, exist_ok=True)
+    bpy.ops.wm.read_factory_settings(use_empty=True)
+    with addon_registered(bpy):
+        report = {}
+        for clip in DEMO_CLIPS:
+            scene, obj = build_demo_scene(clip)
+            result, warnings = run_analysis(obj, scene)
+            write_load_curve(obj, result)
+            write_markers(obj, scene, result)
+            d = analysis_to_dict(result)
+            d["warnings"] = warnings
+            report[clip.name] = d
+            out.write(f"{clip.name}: {summary_line(result)}\n")
+        blend = os.path.abspath(os.path.join(args.out, "overlap_demo.blend"))
+        tmp = blend + ".tmp.blend"
+        bpy.ops.wm.save_as_mainfile(filepath=tmp, copy=True)
+        os.replace(tmp, blend)
+        summary = os.path.join(args.out, "overlap_demo.json")
+        write_atomic(summary, json.dumps(report, indent=1))
+        out.write(f"wrote {blend}\nwrote {summary}\n{CAUTION}\n")
+    return 0
+
+
+COMMANDS = {"analyze": cmd_analyze, "demo": cmd_demo}
 
 
 def main(argv=None):
