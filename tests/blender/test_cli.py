@@ -1,0 +1,129 @@
+"""Headless commands in a separate process: JSON output, clear errors, files never changed."""
+import json
+import os
+import pathlib
+import subprocess
+import sys
+import textwrap
+
+import bpy
+import pytest
+
+from overlap_assist.blender.demo_scene import build_armature, key_jump
+from overlap_assist.core.jump_curves import JumpSpec, jump_events
+
+ROOT = pathlib.Path(__file__).resolve().parents[2]
+
+
+def run_cli(*args, timeout=300):
+    proc = subprocess.run([sys.executable, "-m", "overlap_assist", *args], cwd=ROOT, capture_output=True,
+                          text=True, timeout=timeout)
+    return proc.returncode, proc.stdout, proc.stderr
+
+
+def save(path):
+    bpy.ops.wm.save_as_mainfile(filepath=str(path), copy=True)
+    return str(path)
+
+
+@pytest.fixture
+def jump_file(tmp_path):
+    bpy.context.scene.gravity = (0, 0, -9.80665)
+    obj = build_armature("Hero")
+    key_jump(obj, JumpSpec(), keys_per_frame=4)
+    return save(tmp_path / "jump.blend")
+
+
+def test_analyze_json_has_the_documented_keys_and_leaves_the_file_alone(jump_file):
+    before = pathlib.Path(jump_file).read_bytes()
+    rc, out, err = run_cli("analyze", jump_file, "--json")
+    assert rc == 0, err
+    d = json.loads(out)  # stdout is exactly one JSON object (Blender's chatter goes to stderr)
+    for key in ("fps", "unit_scale", "gravity_mps2", "body_source", "frames", "load_factor", "phases",
+                "flights", "landings", "warnings"):
+        assert key in d
+    (fl,) = d["flights"]
+    ev = jump_events(JumpSpec())
+    assert fl["takeoff_frame"] == pytest.approx(1 + 24 * ev["takeoff_s"], abs=0.5)
+    assert isinstance(fl["takeoff_frame"], float) and not float(fl["takeoff_frame"]).is_integer()
+    assert {p["name"] for p in d["phases"]} >= {"unweighting", "braking", "propulsion", "flight", "landing"}
+    assert pathlib.Path(jump_file).read_bytes() == before
+
+
+def test_analyze_with_com_body(jump_file):
+    rc, out, err = run_cli("analyze", jump_file, "--json", "--body", "com")
+    assert rc == 0, err
+    assert json.loads(out)["body_source"] == "com"
+
+
+def _one_clear_line(rc, err, fragment):
+    assert rc != 0
+    lines = [ln for ln in err.splitlines() if ln.startswith("overlap_assist: error:")]
+    assert len(lines) == 1 and fragment in lines[0], err
+    assert "Traceback" not in err
+
+
+def test_missing_file(tmp_path):
+    rc, _, err = run_cli("analyze", str(tmp_path / "nope.blend"))
+    _one_clear_line(rc, err, "no such file")
+
+
+def test_corrupt_file(tmp_path):
+    bad = tmp_path / "bad.blend"
+    bad.write_bytes(b"BLENDER-v405" + os.urandom(200))
+    rc, _, err = run_cli("analyze", str(bad))
+    _one_clear_line(rc, err, "cannot read")
+
+
+def test_unknown_armature_lists_candidates(jump_file):
+    rc, _, err = run_cli("analyze", jump_file, "--armature", "Villain")
+    _one_clear_line(rc, err, "Hero")
+
+
+def test_several_armatures_need_a_choice(tmp_path):
+    build_armature("A")
+    build_armature("B")
+    rc, _, err = run_cli("analyze", save(tmp_path / "two.blend"))
+    _one_clear_line(rc, err, "A, B")
+
+
+def test_no_animation(tmp_path):
+    build_armature("Still")
+    rc, _, err = run_cli("analyze", save(tmp_path / "still.blend"))
+    _one_clear_line(rc, err, "has no animation")
+
+
+def test_range_too_short(tmp_path):
+    obj = build_armature("Hero")
+    key_jump(obj, JumpSpec())
+    s = obj.overlap_assist.body
+    s.use_frame_range, s.frame_start, s.frame_end, s.smoothing_window = True, 25, 26, 4.0
+    rc, _, err = run_cli("analyze", save(tmp_path / "short.blend"))
+    _one_clear_line(rc, err, "smoothing window")
+
+
+def test_embedded_scripts_never_run(tmp_path):
+    """A file with a registered text block and a Python-expression driver that would write a file."""
+    marker = tmp_path / "pwned.txt"
+    blend = tmp_path / "evil.blend"
+    make = textwrap.dedent(f"""
+        import bpy, sys
+        sys.path.insert(0, {str(ROOT)!r})
+        from overlap_assist.blender.demo_scene import build_armature, key_jump
+        obj = build_armature("Hero")
+        key_jump(obj)
+        txt = bpy.data.texts.new("boot.py")
+        txt.write("open({str(marker)!r}, 'w').write('text block ran')\\n")
+        txt.use_module = True
+        obj["x"] = 0.0
+        fc = obj.driver_add('["x"]')
+        fc.driver.type = 'SCRIPTED'
+        fc.driver.expression = "__import__('builtins').open({str(marker)!r}, 'w').write('driver ran') or 0"
+        bpy.ops.wm.save_as_mainfile(filepath={str(blend)!r})
+        bpy.ops.wm.read_factory_settings(use_empty=True)
+    """)
+    subprocess.run([sys.executable, "-c", make], check=True, capture_output=True, timeout=300)
+    marker.unlink(missing_ok=True)  # in case the authoring process evaluated it; the CLI must not
+    rc, out, err = run_cli("analyze", str(blend), "--json")
+    assert rc == 0, err
+    assert not marker.exists(), marker.read_text()
