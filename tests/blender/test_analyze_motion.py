@@ -154,3 +154,37 @@ def test_settings_survive_save_and_reload(tmp_path):
     s2 = bpy.data.objects["Hero"].overlap_assist.body
     assert (s2.body_source, s2.segment_table, s2.smoothing_window) == ("COM", "de_leva_female", 2.5)
     assert json.loads(s2.last_summary)["flights"]
+
+
+def test_unmatched_segments_are_listed_and_the_root_is_used():
+    from overlap_assist.blender.demo_scene import HUMANOID_BONES
+    scene = bpy.context.scene
+    scene.gravity = (0.0, 0.0, -G0)
+    no_hands = tuple(b for b in HUMANOID_BONES if not b[0].startswith("hand"))
+    obj = build_armature("Handless", bones=no_hands)
+    key_jump(obj, JumpSpec(), keys_per_frame=4)
+    obj.overlap_assist.body.body_source = "COM"
+    analyze(obj)
+    summary = json.loads(obj.overlap_assist.body.last_summary)
+    assert summary["body_source"] == "root"
+    (warning,) = [w for w in summary["warnings"] if "centre of mass needs" in w]
+    assert "hand.L" in warning and "hand.R" in warning and "'hips'" in warning
+    # A manual override fills the gap (here with the forearms, just to name existing bones).
+    obj.overlap_assist.body.bone_overrides = "hand.L=forearm.L, hand.R=forearm.R"
+    analyze(obj)
+    assert json.loads(obj.overlap_assist.body.last_summary)["body_source"] == "com"
+
+
+def test_standard_gravity_ignores_a_wrong_scene_gravity():
+    # A centimetre scene whose gravity was left at -9.81 scene units (0.098 m/s²): the analysis warns,
+    # and standard gravity (9.80665 m/s², CGPM 1901) gives the right verdict.
+    scene, obj, _ = make_scene(scale=0.01)
+    scene.gravity = (0.0, 0.0, -9.81)
+    analyze(obj)
+    summary = json.loads(obj.overlap_assist.body.last_summary)
+    assert any("scene gravity is 0.0981" in w for w in summary["warnings"])
+    assert summary["flights"][0]["verdict"].startswith("heavy")
+    obj.overlap_assist.body.gravity_source = "STANDARD"
+    analyze(obj)
+    summary = json.loads(obj.overlap_assist.body.last_summary)
+    assert summary["gravity_mps2"] == G0 and summary["flights"][0]["verdict"].startswith("ballistic")
