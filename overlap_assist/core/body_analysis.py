@@ -8,6 +8,7 @@ import dataclasses
 
 import numpy as np
 
+from .constants import CAUTION
 from .body_types import AnalysisSettings, BodyAnalysis, Landing, MotionSamples
 from .effective_gravity import body_kinematics, effective_gravity, load_factor, up_axis, window_samples
 from .flight_check import arm_swing_timing, check_flight
@@ -95,5 +96,5 @@ def analysis_to_dict(result: BodyAnalysis, per_frame_only: bool = True) -> dict:
         "flights": [clean(dataclasses.asdict(f)) for f in result.flights],
         "landings": [dataclasses.asdict(x) for x in result.landings],
         "warnings": list(result.warnings),
-        "caution": "figures are for animation plausibility only, not biomechanical or medical assessment",
+        "caution": CAUTION,
     }

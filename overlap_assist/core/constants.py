@@ -3,6 +3,9 @@
 The Blender layer takes its UI defaults from here, so UI and core cannot drift apart.
 """
 
+CAUTION = "Figures are for animation plausibility only, not biomechanical or medical assessment"
+"""Shown wherever figures are shown (panel, CLI, JSON, report)."""
+
 STANDARD_GRAVITY_MPS2 = 9.80665
 """Standard acceleration of free fall (3rd CGPM, 1901)."""
 
