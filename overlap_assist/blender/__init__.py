@@ -1,9 +1,9 @@
 """Blender layer: registration in one place, symmetric (everything added is removed in reverse)."""
 import bpy
 
-from . import analyze, panels, properties
+from . import analyze, bake_ops, chains, panels, preview, properties
 
-classes = (*properties.classes, *analyze.classes, *panels.classes)
+classes = (*properties.classes, *analyze.classes, *chains.classes, *bake_ops.classes, *panels.classes)
 
 _cli_handles = []
 
@@ -12,6 +12,7 @@ def register():
     for cls in classes:
         bpy.utils.register_class(cls)
     bpy.types.Object.overlap_assist = bpy.props.PointerProperty(type=properties.OverlapAssistSettings)
+    preview.register()
     if hasattr(bpy.utils, "register_cli_command"):
         from .. import cli
         _cli_handles.append(bpy.utils.register_cli_command("overlap_assist", cli.blender_command))
@@ -20,6 +21,7 @@ def register():
 def unregister():
     while _cli_handles:
         bpy.utils.unregister_cli_command(_cli_handles.pop())
+    preview.unregister()
     del bpy.types.Object.overlap_assist
     for cls in reversed(classes):
         bpy.utils.unregister_class(cls)

@@ -5,6 +5,7 @@ import bpy
 import numpy as np
 
 from ..core.body_analysis import analyse_body, analysis_to_dict
+from ..core.constants import CAUTION  # noqa: F401 - re-exported for the panel and the CLI
 from ..core.errors import OverlapAssistError
 from . import anim_data
 from .sample_body import body_samples
@@ -13,7 +14,6 @@ LOAD_PROPERTY = "overlap_load_g"
 """Custom property on the armature object whose F-curve shows the load factor."""
 LOAD_GROUP = "Overlap Load"
 MARKER_EVENTS = (("takeoff_frame", "takeoff"), ("apex_frame", "apex"), ("touchdown_frame", "touchdown"))
-CAUTION = "Figures are for animation plausibility only, not biomechanical or medical assessment"
 
 
 def run_analysis(obj, scene, progress=None):
@@ -28,7 +28,15 @@ def write_load_curve(obj, result):
     """Key the load factor on a custom property of the object (bone animation is not touched)."""
     if LOAD_PROPERTY not in obj.keys():
         obj[LOAD_PROPERTY] = 1.0
-    bag = anim_data.active_fcurves(obj, create=True)
+    from .bake_layer import BASE_TRACK_NAME
+    ad = obj.animation_data
+    base = ad.nla_tracks.get(BASE_TRACK_NAME) if ad is not None and ad.action is None else None
+    if base is not None and base.strips:
+        # A bake is in place: the user's action sits in the base strip, keep the curve there.
+        strip = base.strips[0]
+        bag = anim_data.channelbag_for(strip.action, strip.action_slot, create=True)
+    else:
+        bag = anim_data.active_fcurves(obj, create=True)
     fc = anim_data.ensure_fcurve(bag, f'["{LOAD_PROPERTY}"]', 0, LOAD_GROUP)
     anim_data.write_keys(fc, result.frames, result.load_factor, 'LINEAR')
     return fc

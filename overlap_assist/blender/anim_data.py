@@ -91,3 +91,88 @@ def all_action_fcurves(action):
             for bag in strip.channelbags:
                 out.extend(bag.fcurves)
     return out
+
+
+def slot_fcurves(action, slot):
+    """F-curves of ``slot`` in ``action`` (empty list when the slot has no channelbag)."""
+    if action is None or slot is None:
+        return []
+    bag = channelbag_for(action, slot, create=False)
+    return list(bag.fcurves) if bag is not None else []
+
+
+def animated_paths(id_data):
+    """Data paths animated on ``id_data`` by its active action and its unmuted NLA strips.
+
+    The active action counts through its assigned slot, each strip through ``strip.action_slot``.
+    """
+    ad = id_data.animation_data
+    if ad is None:
+        return set()
+    paths = {fc.data_path for fc in slot_fcurves(ad.action, ad.action_slot)}
+    for track in ad.nla_tracks:
+        if track.mute:
+            continue
+        for strip in track.strips:
+            if not strip.mute:
+                paths.update(fc.data_path for fc in slot_fcurves(strip.action, strip.action_slot))
+    return paths
+
+
+# Per-key attributes read and written in bulk; (name, numpy dtype, values per key). Enum values
+# travel as their integer value through foreach_get/foreach_set on every version 4.5 to 5.3.
+KEYFRAME_ATTRIBUTES = (
+    ("co", "f4", 2), ("handle_left", "f4", 2), ("handle_right", "f4", 2),
+    ("interpolation", "i4", 1), ("handle_left_type", "i4", 1), ("handle_right_type", "i4", 1),
+    ("easing", "i4", 1), ("type", "i4", 1), ("back", "f4", 1), ("amplitude", "f4", 1),
+    ("period", "f4", 1),
+)
+
+
+def _enum_value(struct, prop, identifier):
+    return struct.bl_rna.properties[prop].enum_items[identifier].value
+
+
+def read_keyframes(fc):
+    """All keys of ``fc`` as {attribute: array, shape (n,) or (n, 2)} (see KEYFRAME_ATTRIBUTES)."""
+    import numpy as np
+    n = len(fc.keyframe_points)
+    out = {}
+    for name, dtype, width in KEYFRAME_ATTRIBUTES:
+        buf = np.empty(n * width, dtype=dtype)
+        fc.keyframe_points.foreach_get(name, buf)
+        out[name] = buf.reshape(n, width) if width > 1 else buf
+    return out
+
+
+def write_keyframes(fc, keys):
+    """Replace all keys of ``fc`` with ``keys`` ({attribute: array} as from read_keyframes).
+
+    One ``keyframe_points.add`` and one ``foreach_set`` per attribute; attributes missing from
+    ``keys`` keep Blender's defaults. ``fc.update()`` sorts the keys and recomputes only the
+    handles of AUTO/AUTO_CLAMPED/VECTOR keys; ALIGNED and FREE handles are kept as written.
+    """
+    import numpy as np
+    fc.keyframe_points.clear()
+    n = len(keys["co"])
+    fc.keyframe_points.add(n)
+    for name, dtype, _width in KEYFRAME_ATTRIBUTES:
+        if name in keys:
+            fc.keyframe_points.foreach_set(name, np.ascontiguousarray(keys[name], dtype=dtype).ravel())
+    fc.update()
+
+
+def bezier_keys(key_frames, key_values, handle_left, handle_right, handle_type="ALIGNED"):
+    """{attribute: array} for Bézier keys with explicit handles of one type (for write_keyframes)."""
+    import numpy as np
+    n = len(key_frames)
+    kp = bpy.types.Keyframe
+    handle = _enum_value(kp, "handle_left_type", handle_type)
+    return {
+        "co": np.stack((key_frames, key_values), axis=1),
+        "handle_left": np.asarray(handle_left),
+        "handle_right": np.asarray(handle_right),
+        "interpolation": np.full(n, _enum_value(kp, "interpolation", "BEZIER")),
+        "handle_left_type": np.full(n, handle),
+        "handle_right_type": np.full(n, handle),
+    }

@@ -87,4 +87,128 @@ class VIEW3D_PT_overlap_assist_body_options(OverlapPanelMixin, bpy.types.Panel):
             row.prop(s, "frame_end")
 
 
-classes = (VIEW3D_PT_overlap_assist_body, VIEW3D_PT_overlap_assist_body_options)
+class OVERLAP_ASSIST_UL_chains(bpy.types.UIList):
+    def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index=0):
+        from .chain_sim import chain_problem
+        problem = chain_problem(context.active_object, item)
+        row = layout.row(align=True)
+        row.prop(item, "name", text="", emboss=False, icon='ERROR' if problem else 'BONE_DATA')
+        row.label(text=f"{len(item.bones)} bones")
+        row.prop(item, "mute", text="", icon='HIDE_ON' if item.mute else 'HIDE_OFF', emboss=False)
+
+
+class OVERLAP_ASSIST_UL_colliders(bpy.types.UIList):
+    def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index=0):
+        row = layout.row(align=True)
+        row.prop_search(item, "bone", context.active_object.data, "bones", text="")
+        row.prop(item, "shape", text="")
+        row.prop(item, "radius", text="")
+
+
+def draw_chain_settings(layout, chain, fps):
+    from ..core import response
+    col = layout.column()
+    col.prop(chain, "response_mode", expand=True)
+    if chain.response_mode == "ANIMATOR":
+        col.prop(chain, "bounce")
+        col.prop(chain, "time_driver", expand=True)
+        col.prop(chain, "settle_frames" if chain.time_driver == "SETTLE" else "lag_frames")
+        try:
+            f_hz, zeta = chain.physical(fps)
+            derived = (f"Lag {response.lag_frames_of(f_hz, zeta, fps):.1f} frames"
+                       if chain.time_driver == "SETTLE" else
+                       f"Settle {response.settle_frames_of(f_hz, zeta, fps):.1f} frames")
+            col.label(text=f"{derived} · {f_hz:.2f} Hz, damping {zeta:.2f}")
+        except Exception as exc:  # noqa: BLE001 - drawing must not fail
+            col.label(text=str(exc), icon='ERROR')
+    else:
+        col.prop(chain, "frequency_hz")
+        col.prop(chain, "damping_ratio")
+    for prop in ("tip_looseness", "gravity_scale", "body_response", "air_drag", "bend_limit",
+                 "collision_radius", "substeps"):
+        col.prop(chain, prop)
+
+
+class VIEW3D_PT_overlap_assist_chains(OverlapPanelMixin, bpy.types.Panel):
+    bl_label = "Chains"
+
+    def draw(self, context):
+        from . import preview
+        from .chain_sim import chain_problem
+        layout = self.layout
+        obj = context.active_object
+        s = obj.overlap_assist
+        row = layout.row()
+        row.template_list("OVERLAP_ASSIST_UL_chains", "", s, "chains", s, "active_chain", rows=3)
+        col = row.column(align=True)
+        col.operator("overlap_assist.add_chains", icon='ADD', text="")
+        col.operator("overlap_assist.remove_chain", icon='REMOVE', text="")
+        on = preview.PREVIEW.is_on(obj)
+        row = layout.row(align=True)
+        row.operator("overlap_assist.toggle_preview", text="Preview on" if on else "Live Preview",
+                     icon='PAUSE' if on else 'PLAY', depress=on)
+        row.operator("overlap_assist.frame_flight", icon='PREVIEW_RANGE')
+        if not s.chains or not 0 <= s.active_chain < len(s.chains):
+            layout.label(text="Select chain bones in pose mode, then Add Chains from Selection", icon='INFO')
+            return
+        chain = s.chains[s.active_chain]
+        problem = chain_problem(obj, chain)
+        if problem:
+            layout.label(text=f"Chain {chain.name} {problem}", icon='ERROR')
+        layout.label(text=" → ".join(chain.bone_names()) or "(no bones)")
+        row = layout.row(align=True)
+        row.operator_menu_enum("overlap_assist.apply_preset", "preset", text=chain.preset or "Preset")
+        row.operator("overlap_assist.save_preset", icon='FILE_TICK', text="")
+        layout.use_property_split = True
+        fps = context.scene.render.fps / context.scene.render.fps_base
+        draw_chain_settings(layout, chain, fps)
+
+
+class VIEW3D_PT_overlap_assist_colliders(OverlapPanelMixin, bpy.types.Panel):
+    bl_label = "Colliders"
+    bl_parent_id = "VIEW3D_PT_overlap_assist_chains"
+    bl_options = {'DEFAULT_CLOSED'}
+
+    def draw(self, context):
+        s = context.active_object.overlap_assist
+        row = self.layout.row()
+        row.template_list("OVERLAP_ASSIST_UL_colliders", "", s, "colliders", s, "active_collider", rows=2)
+        col = row.column(align=True)
+        col.operator("overlap_assist.add_collider", icon='ADD', text="")
+        col.operator("overlap_assist.remove_collider", icon='REMOVE', text="")
+        row = self.layout.row(align=True)
+        row.prop(s, "use_ground")
+        sub = row.row()
+        sub.active = s.use_ground
+        sub.prop(s, "ground_height")
+
+
+class VIEW3D_PT_overlap_assist_bake(OverlapPanelMixin, bpy.types.Panel):
+    bl_label = "Bake"
+
+    def draw(self, context):
+        from . import bake_layer
+        layout = self.layout
+        layout.use_property_split = True
+        obj = context.active_object
+        s = obj.overlap_assist
+        layout.prop(s, "bake_scope")
+        layout.prop(s, "bake_tolerance_deg")
+        layout.prop(s, "bake_use_range")
+        if s.bake_use_range:
+            row = layout.row(align=True)
+            row.prop(s, "bake_frame_start")
+            row.prop(s, "bake_frame_end")
+        row = layout.row(align=True)
+        row.operator("overlap_assist.bake_chains", icon='REC')
+        row.operator("overlap_assist.remove_bake", icon='TRASH')
+        layout.operator("overlap_assist.bake_chains", text="Write into the Action…").into_action = True
+        if bake_layer.has_bake(obj):
+            layout.prop(s, "bake_influence")
+        if s.last_bake:
+            layout.label(text=s.last_bake, icon='INFO')
+
+
+classes = (VIEW3D_PT_overlap_assist_body, VIEW3D_PT_overlap_assist_body_options, OVERLAP_ASSIST_UL_chains,
+           OVERLAP_ASSIST_UL_colliders, VIEW3D_PT_overlap_assist_chains, VIEW3D_PT_overlap_assist_colliders,
+           VIEW3D_PT_overlap_assist_bake)

@@ -8,6 +8,7 @@ from bpy.props import BoolProperty, EnumProperty, FloatProperty, IntProperty, St
 
 from ..core import constants as C
 from ..core.body_types import AnalysisSettings
+from . import chain_props
 
 BODY_SOURCES = (
     ("ROOT", "Root bone", "Use one bone (the hips or root) as the body"),
@@ -74,9 +75,43 @@ class OverlapAssistBodySettings(bpy.types.PropertyGroup):
         return out
 
 
+def _bake_influence_changed(self, context):
+    from . import bake_layer
+    bake_layer.set_bake_influence(self.id_data, self.bake_influence)
+
+
+def _preview_changed(self, context):
+    from . import preview
+    preview.mark_dirty(settings_only=True)
+
+
 class OverlapAssistSettings(bpy.types.PropertyGroup):
     """Everything Overlap Assist stores on one armature object."""
     body: bpy.props.PointerProperty(type=OverlapAssistBodySettings)
+    chains: bpy.props.CollectionProperty(type=chain_props.OverlapAssistChain)
+    active_chain: IntProperty(name="Active chain", default=0, min=0)
+    colliders: bpy.props.CollectionProperty(type=chain_props.OverlapAssistCollider)
+    active_collider: IntProperty(name="Active collider", default=0, min=0)
+    use_ground: BoolProperty(name="Ground", default=True, update=_preview_changed,
+                             description="Keep chains above a horizontal ground plane")
+    ground_height: FloatProperty(name="Ground height", default=0.0, subtype='DISTANCE', update=_preview_changed,
+                                 description="Height of the ground plane (scene units)")
 
 
-classes = (OverlapAssistBodySettings, OverlapAssistSettings)
+    bake_scope: EnumProperty(name="Bake", items=(("ALL", "All chains", "Bake every chain that is not muted"),
+                                                 ("SELECTED", "Selected", "Bake chains with a selected bone")),
+                             default="ALL")
+    bake_tolerance_deg: FloatProperty(name="Key tolerance (°)", default=0.5, min=0.0, max=10.0,
+                                      description="Largest difference allowed between the keys and the simulation; "
+                                                  "0 keeps a key on every frame")
+    bake_use_range: BoolProperty(name="Custom range", default=False,
+                                 description="Bake a chosen range instead of the scene's frame range")
+    bake_frame_start: IntProperty(name="Start", default=1)
+    bake_frame_end: IntProperty(name="End", default=250)
+    bake_influence: FloatProperty(name="Influence", default=1.0, min=0.0, max=1.0, subtype='FACTOR',
+                                  update=_bake_influence_changed,
+                                  description="How much of the baked layer is mixed over the animation")
+    last_bake: StringProperty(name="Last bake", default="")
+
+
+classes = (OverlapAssistBodySettings, *chain_props.classes, OverlapAssistSettings)

@@ -213,6 +213,8 @@ class ChainMotion:
         Number of sub-steps in which a collider or the ground pushed the link's end out.
     max_swing_rad : tuple of float
         Largest angle between a simulated and an animated link direction, over all frames.
+    final_states : tuple of ChainState
+        State after the last frame (to continue a simulation, or to inspect the motion).
     substeps : int
         Sub-steps per frame actually used (the largest requested, raised for stiff settings).
     """
@@ -221,6 +223,7 @@ class ChainMotion:
     tip_positions_m: tuple
     contact_counts: tuple
     max_swing_rad: tuple
+    final_states: tuple
     substeps: int
 
 

@@ -127,3 +127,87 @@ def test_embedded_scripts_never_run(tmp_path):
     rc, out, err = run_cli("analyze", str(blend), "--json")
     assert rc == 0, err
     assert not marker.exists(), marker.read_text()
+
+
+@pytest.fixture
+def tail_file(tmp_path):
+    from overlap_assist.blender.demo_scene import HUMANOID_BONES
+    tail = (("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
+            ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)),
+            ("tail.003", "tail.002", (0, 0.30, 0.78), (0, 0.36, 0.64)))
+    bpy.context.scene.gravity = (0, 0, -9.80665)
+    obj = build_armature("Hero", bones=HUMANOID_BONES + tail)
+    key_jump(obj, JumpSpec(forward_mps=1.0, after_s=3.5))
+    return save(tmp_path / "tail.blend")
+
+
+def test_simulate_json_per_chain(tail_file):
+    rc, out, err = run_cli("simulate", tail_file, "--chain", "tail.001,tail.002,tail.003", "--preset", "heavy_tail",
+                           "--json")
+    assert rc == 0, err
+    (row,) = json.loads(out)["chains"]
+    assert row["chain"] == "tail.001" and row["bones"] == 3
+    assert 5 < row["max_swing_deg"] < 180
+    assert row["settle_frame_after_landing"] is not None
+    assert row["settle_frame_after_landing"] > row["last_touchdown_frame"]
+
+
+def test_simulate_physical_overrides_change_the_result(tail_file):
+    chain = ("--chain", "tail.001,tail.002,tail.003", "--json")
+    _, soft, _ = run_cli("simulate", tail_file, *chain, "--frequency-hz", "0.8", "--damping-ratio", "0.1")
+    _, stiff, _ = run_cli("simulate", tail_file, *chain, "--frequency-hz", "8", "--damping-ratio", "1")
+    assert json.loads(soft)["chains"][0]["max_swing_deg"] > json.loads(stiff)["chains"][0]["max_swing_deg"]
+
+
+@pytest.mark.parametrize("args,fragment", [
+    ((), "has no chains"),
+    (("--chain", "tail.001,nope"), "no bone named nope"),
+    (("--chain", "tail.001", "--preset", "nonesuch"), "no preset named"),
+    (("--chain", "tail.001", "--damping-ratio", "50"), "outside"),
+])
+def test_simulate_bad_input(tail_file, args, fragment):
+    rc, _, err = run_cli("simulate", tail_file, *args)
+    _one_clear_line(rc, err, fragment)
+
+
+def test_bake_writes_a_new_file_and_leaves_the_input(tail_file, tmp_path):
+    before = pathlib.Path(tail_file).read_bytes()
+    out_path = tmp_path / "baked.blend"
+    rc, out, err = run_cli("bake", tail_file, "--out", str(out_path), "--chain", "tail.001,tail.002,tail.003",
+                           "--preset", "heavy_tail", "--json")
+    assert rc == 0, err
+    d = json.loads(out)
+    assert d["keys_written"] < d["keys_before"] and d["bones"] == ["tail.001", "tail.002", "tail.003"]
+    assert pathlib.Path(tail_file).read_bytes() == before
+    assert not [p for p in tmp_path.iterdir() if ".tmp" in p.name]
+    bpy.ops.wm.open_mainfile(filepath=str(out_path), load_ui=False)
+    obj = bpy.data.objects["Hero"]
+    assert obj.animation_data.nla_tracks.get("Overlap Bake") is not None
+    assert [c.bone_names() for c in obj.overlap_assist.chains] == [["tail.001", "tail.002", "tail.003"]]
+
+
+def test_free_pendulum_bake_with_stored_chains(tail_file, tmp_path):
+    # Chains stored in the file are baked when no --chain is given.
+    bpy.ops.wm.open_mainfile(filepath=tail_file, load_ui=False)
+    c = bpy.data.objects["Hero"].overlap_assist.chains.add()
+    c.name = "tail"
+    for n in ("tail.001", "tail.002", "tail.003"):
+        c.bones.add().name = n
+    stored = save(tmp_path / "stored.blend")
+    rc, out, err = run_cli("bake", stored, "--out", str(tmp_path / "free.blend"), "--frequency-hz", "0",
+                           "--damping-ratio", "0", "--air-drag", "0", "--json")
+    assert rc == 0, err
+    assert json.loads(out)["bones"] == ["tail.001", "tail.002", "tail.003"]
+
+
+@pytest.mark.parametrize("extra,fragment", [
+    ((), "--out"),
+    (("--out", "SAME"), "--in-place"),
+    (("--out", "/no/such/dir/x.blend", "--chain", "tail.001"), "output folder does not exist"),
+])
+def test_bake_refuses_unsafe_outputs(tail_file, extra, fragment):
+    extra = tuple(tail_file if a == "SAME" else a for a in extra)
+    before = pathlib.Path(tail_file).read_bytes()
+    rc, _, err = run_cli("bake", tail_file, *extra)
+    _one_clear_line(rc, err, fragment)
+    assert pathlib.Path(tail_file).read_bytes() == before

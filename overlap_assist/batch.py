@@ -1,0 +1,161 @@
+"""Batch processing of many .blend files, each in its own worker process.
+
+Each input is analysed and, when it has chains (or a preset file is given), baked; the outputs
+(``<stem>.analysis.json``, ``<stem>.report.html``, ``<stem>.baked.blend``) are written atomically
+into the output folder. One file's failure is reported and the rest go on. A stamp per input
+records what produced its outputs, so re-running skips files whose outputs are up to date.
+Workers open files with scripts disabled (see cli.open_blend).
+"""
+import concurrent.futures
+import glob
+import hashlib
+import json
+import os
+import subprocess
+import sys
+import time
+
+STAMP_SUFFIX = ".stamp.json"
+WORKER_TIMEOUT_S = 1800
+"""A single file that takes longer than this is stopped and reported (a hung or huge scene)."""
+
+
+def expand_inputs(patterns):
+    """Paths from paths and globs, in order, without repeats; unmatched patterns are kept (they fail clearly)."""
+    seen, out = set(), []
+    for pat in patterns:
+        matches = sorted(glob.glob(pat)) if glob.has_magic(pat) else [pat]
+        for p in matches or [pat]:
+            key = os.path.abspath(p)
+            if key not in seen:
+                seen.add(key)
+                out.append(p)
+    return out
+
+
+def output_stems(paths):
+    """A distinct output name per input (same file names in different folders get _2, _3...)."""
+    stems, used = [], {}
+    for p in paths:
+        stem = os.path.splitext(os.path.basename(p))[0] or "clip"
+        n = used.get(stem, 0) + 1
+        used[stem] = n
+        stems.append(stem if n == 1 else f"{stem}_{n}")
+    return stems
+
+
+def file_digest(path):
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for block in iter(lambda: f.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def stamp_for(path, preset_file):
+    version = _tool_version()
+    return {"input": os.path.abspath(path), "input_sha256": file_digest(path),
+            "preset_sha256": file_digest(preset_file) if preset_file else None, "tool_version": version}
+
+
+def _tool_version():
+    manifest = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "blender_manifest.toml")
+    here = os.path.join(os.path.dirname(os.path.abspath(__file__)), "blender_manifest.toml")
+    for m in (here, manifest):
+        if os.path.isfile(m):
+            for line in open(m, encoding="utf-8"):
+                if line.startswith("version"):
+                    return line.split("=", 1)[1].strip().strip('"')
+    return "unknown"
+
+
+def up_to_date(out_dir, stem, stamp):
+    path = os.path.join(out_dir, stem + STAMP_SUFFIX)
+    try:
+        with open(path, encoding="utf-8") as f:
+            old = json.load(f)
+    except (OSError, ValueError):
+        return False
+    outputs = old.get("outputs", [])
+    return (all(old.get(k) == v for k, v in stamp.items()) and outputs
+            and all(os.path.isfile(os.path.join(out_dir, o)) for o in outputs))
+
+
+def worker_prefix():
+    """How to start a worker. Decided once, on the main thread (never import bpy from a thread)."""
+    bpy = sys.modules.get("bpy")  # inside Blender it is already imported; never import it just to ask
+    binary = getattr(getattr(bpy, "app", None), "binary_path", "") if bpy else ""
+    if binary and os.path.basename(binary).lower().startswith("blender"):
+        # Inside Blender: a background Blender runs the same command through the extension hook.
+        return [binary, "--background", "--factory-startup", "--command", "overlap_assist"]
+    return [sys.executable, "-m", "overlap_assist"]
+
+
+def worker_command(prefix, path, out_dir, stem, preset_file):
+    args = ["process", path, "--out-dir", out_dir, "--stem", stem]
+    if preset_file:
+        args += ["--preset-file", preset_file]
+    return [*prefix, *args]
+
+
+def run_one(prefix, path, out_dir, stem, preset_file):
+    """Process one input in a worker process; returns a log row."""
+    start = time.perf_counter()
+    row = {"input": path, "stem": stem, "status": "failed", "message": "", "seconds": 0.0}
+    try:
+        if not os.path.isfile(path):
+            row["message"] = f"no such file: {path}"
+            return row
+        stamp = stamp_for(path, preset_file)
+        if up_to_date(out_dir, stem, stamp):
+            row.update(status="skipped", message="outputs up to date")
+            return row
+        proc = subprocess.run(worker_command(prefix, path, out_dir, stem, preset_file), capture_output=True, text=True,
+                              timeout=WORKER_TIMEOUT_S, stdin=subprocess.DEVNULL)
+        if proc.returncode != 0:
+            lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
+            errors = [ln for ln in lines if "overlap_assist: error:" in ln]
+            row["message"] = (errors or lines or [f"worker exited with status {proc.returncode}"])[-1]
+            row["message"] = row["message"].replace("overlap_assist: error: ", "")
+            return row
+        result = json.loads(proc.stdout.strip().splitlines()[-1])
+        stamp["outputs"] = result["outputs"]
+        write_json_atomic(os.path.join(out_dir, stem + STAMP_SUFFIX), stamp)
+        row.update(status="ok", message=result.get("summary", ""), outputs=result["outputs"])
+    except subprocess.TimeoutExpired:
+        row["message"] = f"took longer than {WORKER_TIMEOUT_S} s and was stopped"
+    except (OSError, ValueError, KeyError, IndexError) as exc:
+        row["message"] = f"{type(exc).__name__}: {exc}"
+    finally:
+        row["seconds"] = round(time.perf_counter() - start, 2)
+    return row
+
+
+def write_json_atomic(path, data):
+    tmp = f"{path}.tmp{os.getpid()}"
+    with open(tmp, "w", encoding="utf-8") as f:
+        json.dump(data, f, indent=1)
+    os.replace(tmp, path)
+
+
+def run_batch(patterns, out_dir, preset_file=None, jobs=1, out=sys.stdout):
+    """Process every input; returns (rows, exit status). Prints a summary table to ``out``."""
+    os.makedirs(out_dir, exist_ok=True)
+    paths = expand_inputs(patterns)
+    stems = output_stems(paths)
+    jobs = max(1, min(jobs, len(paths) or 1))
+    prefix = worker_prefix()
+    with concurrent.futures.ThreadPoolExecutor(max_workers=jobs) as pool:
+        futures = [pool.submit(run_one, prefix, p, os.path.abspath(out_dir), s, preset_file)
+                   for p, s in zip(paths, stems)]
+        rows = [f.result() for f in futures]
+    width = max([len(r["input"]) for r in rows] + [5])
+    out.write(f"{'input':<{width}}  {'status':<8} {'time':>7}  message\n")
+    for r in rows:
+        out.write(f"{r['input']:<{width}}  {r['status']:<8} {r['seconds']:6.1f}s  {r['message']}\n")
+    counts = {k: sum(r["status"] == k for r in rows) for k in ("ok", "skipped", "failed")}
+    out.write(f"{counts['ok']} processed, {counts['skipped']} up to date, {counts['failed']} failed\n")
+    write_json_atomic(os.path.join(out_dir, "batch_log.json"),
+                      {"inputs": len(rows), **counts, "rows": rows,
+                       "caution": "figures are for animation plausibility only"})
+    return rows, (1 if counts["failed"] else 0)

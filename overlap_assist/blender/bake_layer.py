@@ -1,0 +1,468 @@
+"""Write simulated rotation offsets to a removable NLA layer (or, when asked, into the action).
+
+Arrangement (measured the same on Blender 4.5.15, 5.2.3 and 5.3.0)
+------------------------------------------------------------------
+The active action is evaluated *on top of* the NLA stack with its own blend type, so a layer on
+an NLA track under an active REPLACE action is hidden for every channel the action animates.
+While a bake exists the object's animation data therefore looks like this (bottom to top)::
+
+    the user's own NLA tracks (untouched)
+    "Overlap Base"   one strip holding the user's action and slot, with the action's former
+                     blend type, influence and extrapolation (REPLACE, 1, HOLD by default)
+    "Overlap Bake"   one strip holding "<object> Overlap Bake", blend COMBINE, extrapolation
+                     NOTHING (no offset outside the baked frames), animated influence
+    active action:   none
+
+COMBINE composes quaternions as ``lower @ upper`` (the offset on the right) and adds Euler
+angles, so the evaluated basis rotation is ``animated ∘ offset``. The base strip maps action time
+1:1 onto scene time; with no user tracks before the bake (the action was then evaluated directly,
+F-curve extrapolation included) its range is widened to cover the scene range and the baked frames.
+The user's action is never edited: only its assignment moves into the strip, and
+:func:`remove_bake` puts back action, slot, blend type, influence, extrapolation and the NLA switch
+exactly. To edit the base animation while a bake exists, tab into the "Overlap Base" strip
+(NLA tweak mode) or remove the bake. Making the bake the active action instead was rejected: new
+keys the animator sets would then land in the bake.
+
+Influence: the bake strip's influence with "Animated Influence" on, held by one constant key
+(``strip.influence`` alone is ignored unless animated). :func:`set_bake_influence` rewrites that key;
+the animator can also key it in the NLA editor.
+
+Rotation modes: QUATERNION offsets are written as they are (w, x, y, z), hemisphere-continuous.
+The six Euler orders get ``euler(animated ∘ offset) - euler(animated)`` per frame, each frame's
+Euler chosen nearest the previous one (no ±180° flips), from the animated pose sampled before the
+layer exists. AXIS_ANGLE is refused. A rotation channel that nothing animates is written absolute
+(its static pose ∘ offset, COMBINE over the identity) and its static value restored on removal.
+
+Limitation: rotation channels keyed on only some of their components, and drivers on baked
+channels (drivers run after the NLA and win), are not handled specially.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import bpy
+import numpy as np
+from mathutils import Euler, Quaternion
+
+from ..core.errors import OverlapAssistError
+from ..core.key_reduce import evaluate_keys, reduce_euler_curves, reduce_quaternion_curves
+from . import anim_data
+
+BAKE_TRACK_NAME = "Overlap Bake"
+BASE_TRACK_NAME = "Overlap Base"
+INFO_KEY = "overlap_assist_bake"
+"""Custom property on the bake action: how to restore the object's animation data."""
+EULER_ORDERS = ("XYZ", "XZY", "YXZ", "YZX", "ZXY", "ZYX")
+
+
+class BakeError(OverlapAssistError):
+    """The bake cannot be written; the message says what to do. Nothing was changed."""
+
+
+@dataclass(frozen=True, slots=True)
+class BakeStats:
+    """What one bake wrote."""
+
+    bones: tuple
+    """Names of the baked bones."""
+    n_frames: int
+    """Number of simulated frames."""
+    keys_before: int
+    """Keys a per-frame bake would write (curves x frames)."""
+    keys_written: int
+    """Keys written after reduction."""
+    max_error_deg: float
+    """Largest difference between the written curves and the per-frame values, degrees
+    (quaternions: rotation angle; Euler: per channel), by evaluate_keys (Blender's Bézier rule)."""
+    action_name: str
+    """The bake action, or the user's action for ``into_action``."""
+    into_action: bool
+    """True when the result went into the user's action instead of a layer."""
+
+    @property
+    def reduction_percent(self) -> float:
+        """Share of per-frame keys not written, 0..100."""
+        return 100.0 * (1.0 - self.keys_written / self.keys_before) if self.keys_before else 0.0
+
+    def summary(self) -> str:
+        where = "into the action" if self.into_action else f"on the {BAKE_TRACK_NAME} layer"
+        return (f"Baked {self.keys_written} keys on {len(self.bones)} bones over {self.n_frames} frames {where} "
+                f"({self.reduction_percent:.0f} % fewer than per frame, max error {self.max_error_deg:.2f}°)")
+
+
+# ---------------------------------------------------------------------------------------------
+# Finding and checking
+# ---------------------------------------------------------------------------------------------
+
+def bake_action_name(obj) -> str:
+    return f"{obj.name} {BAKE_TRACK_NAME}"
+
+
+def find_bake(obj):
+    """(track, strip, action) of the object's bake layer, or None."""
+    ad = obj.animation_data
+    track = ad.nla_tracks.get(BAKE_TRACK_NAME) if ad else None
+    if track is None or len(track.strips) != 1:
+        return None
+    strip = track.strips[0]
+    act = strip.action
+    if act is None or INFO_KEY not in act.keys():
+        return None
+    return track, strip, act
+
+
+def has_bake(obj) -> bool:
+    return find_bake(obj) is not None
+
+
+def _check_object(obj):
+    if obj is None or obj.type != 'ARMATURE':
+        raise BakeError("Select the character's armature to bake onto")
+    ad = obj.animation_data
+    if ad is not None and ad.use_tweak_mode:
+        raise BakeError(f"{obj.name} is in NLA tweak mode: leave tweak mode (Tab in the NLA editor) first")
+    if ad is not None and any(t.is_solo for t in ad.nla_tracks):
+        raise BakeError(f"An NLA track of {obj.name} is set to Solo: turn Solo off so the bake layer can play")
+
+
+def _validate(obj, frames, offsets, tolerance_deg, influence):
+    """Checked copies: frames float64 (n,), offsets {bone: unit quaternions (n, 4)}."""
+    _check_object(obj)
+    frames = np.asarray(frames, dtype=np.float64)
+    if frames.ndim != 1 or frames.shape[0] < 2:
+        raise BakeError(f"Bake needs at least 2 frames, got shape {frames.shape}")
+    if not np.all(np.isfinite(frames)) or np.any(frames != np.round(frames)) or np.any(np.diff(frames) <= 0):
+        raise BakeError("Bake frames must be whole frame numbers in increasing order")
+    if not (np.isfinite(tolerance_deg) and tolerance_deg >= 0.0):
+        raise BakeError(f"Key tolerance must be 0° or more, got {tolerance_deg}")
+    if not (0.0 <= influence <= 1.0):
+        raise BakeError(f"Influence must be between 0 and 1, got {influence}")
+    if not offsets:
+        raise BakeError("Nothing to bake: no bone offsets were given")
+    checked = {}
+    for name, q in offsets.items():
+        pb = obj.pose.bones.get(name)
+        if pb is None:
+            raise BakeError(f"Bone '{name}' is not in {obj.name}: check the chain's bone names")
+        if pb.rotation_mode == 'AXIS_ANGLE':
+            raise BakeError(f"Bone '{name}' uses Axis Angle rotation, which cannot be layered: set its rotation "
+                            "mode to Quaternion or an Euler order (N panel > Bone > Rotation Mode) and bake again")
+        q = np.array(q, dtype=np.float64)
+        if q.shape != (frames.shape[0], 4) or not np.all(np.isfinite(q)):
+            raise BakeError(f"Offsets of '{name}' must be {frames.shape[0]} finite quaternions, got shape {q.shape}")
+        norm = np.linalg.norm(q, axis=1, keepdims=True)
+        if np.any(norm < 1e-6):
+            raise BakeError(f"Offsets of '{name}' contain a zero quaternion")
+        checked[name] = q / norm
+    return frames, checked
+
+
+# ---------------------------------------------------------------------------------------------
+# Rotation math (float64 numpy for quaternions; mathutils for Euler decomposition)
+# ---------------------------------------------------------------------------------------------
+
+def _qmul(a, b):
+    """Hamilton product of (n, 4) arrays (w, x, y, z)."""
+    w1, x1, y1, z1 = a.T
+    w2, x2, y2, z2 = b.T
+    return np.stack((w1 * w2 - x1 * x2 - y1 * y2 - z1 * z2, w1 * x2 + x1 * w2 + y1 * z2 - z1 * y2,
+                     w1 * y2 - x1 * z2 + y1 * w2 + z1 * x2, w1 * z2 + x1 * y2 - y1 * x2 + z1 * w2), axis=1)
+
+
+def _continuous(q, reference):
+    """q (n, 4) with signs flipped so q[0]·reference >= 0 and consecutive rows share a hemisphere."""
+    first = -1.0 if np.dot(q[0], reference) < 0.0 else 1.0
+    flips = np.concatenate(([0], np.sum(q[1:] * q[:-1], axis=1) < 0.0))
+    return q * (first * np.where(np.cumsum(flips) % 2 == 1, -1.0, 1.0))[:, None]
+
+
+def compose_euler(basis, order, offsets):
+    """Euler angles of ``basis ∘ offset`` per frame, each nearest the previous frame's.
+
+    Parameters
+    ----------
+    basis : ndarray, shape (n, 3), animated Euler angles (rad) in ``order``
+    order : one of EULER_ORDERS
+    offsets : ndarray, shape (n, 4), unit quaternions (w, x, y, z)
+
+    Returns
+    -------
+    ndarray, shape (n, 3): composed angles; ``composed - basis`` is the continuous Euler offset.
+    """
+    out = np.empty_like(basis)
+    prev_offset = np.zeros(3)
+    for k in range(basis.shape[0]):
+        matrix = Euler(basis[k], order).to_matrix() @ Quaternion(offsets[k]).to_matrix()
+        out[k] = matrix.to_euler(order, Euler(basis[k] + prev_offset, order))
+        prev_offset = out[k] - basis[k]
+    return out
+
+
+def _rotation_property(pb):
+    return "rotation_quaternion" if pb.rotation_mode == 'QUATERNION' else "rotation_euler"
+
+
+def sample_rotations(obj, scene, frames, names, progress=None):
+    """Evaluated rotation channel values of bones per frame: {name: (n, 4) quaternion or (n, 3) Euler}.
+
+    Restores the current frame afterwards.
+    """
+    pose = obj.pose.bones
+    n_bones = len(pose)
+    index = {pb.name: i for i, pb in enumerate(pose)}
+    quats = np.empty((len(frames), n_bones * 4), dtype=np.float32)
+    eulers = np.empty((len(frames), n_bones * 3), dtype=np.float32)
+    frame_back, sub_back = scene.frame_current, scene.frame_subframe
+    try:
+        for k, f in enumerate(frames):
+            scene.frame_set(int(f))
+            pose.foreach_get("rotation_quaternion", quats[k])
+            pose.foreach_get("rotation_euler", eulers[k])
+            if progress is not None and k % 16 == 0:
+                progress(0.5 * k / len(frames))
+    finally:
+        scene.frame_set(frame_back, subframe=sub_back)
+    quats, eulers = quats.reshape(len(frames), n_bones, 4), eulers.reshape(len(frames), n_bones, 3)
+    return {n: (quats if pose[n].rotation_mode == 'QUATERNION' else eulers)[:, index[n]].astype(np.float64)
+            for n in names}
+
+
+# ---------------------------------------------------------------------------------------------
+# Reduction and writing
+# ---------------------------------------------------------------------------------------------
+
+def _reduce(frames, values, is_quaternion, tol_rad):
+    """(curves, max error rad) for one bone's channel values (n, 4) or (n, 3)."""
+    if is_quaternion:
+        curves = reduce_quaternion_curves(frames, values, tol_rad)
+        q = values / np.linalg.norm(values, axis=1, keepdims=True)
+        a = np.stack([evaluate_keys(c, frames) for c in curves], axis=1)
+        a /= np.linalg.norm(a, axis=1, keepdims=True)
+        b = np.where(np.sum(a * q, axis=1, keepdims=True) < 0.0, -q, q)
+        err = 4.0 * np.arctan2(np.linalg.norm(a - b, axis=1), np.linalg.norm(a + b, axis=1))
+        return curves, float(err.max())
+    curves = reduce_euler_curves(frames, values, tol_rad)
+    return curves, max(c.max_error for c in curves)
+
+
+def _merge_outside(fc, curve):
+    """Keys of ``fc`` outside the curve's frame range, plus the curve's keys."""
+    new = anim_data.bezier_keys(curve.key_frames, curve.key_values, curve.handle_left, curve.handle_right,
+                                curve.handle_type)
+    old = anim_data.read_keyframes(fc)
+    keep = (old["co"][:, 0] < curve.key_frames[0] - 1e-4) | (old["co"][:, 0] > curve.key_frames[-1] + 1e-4)
+    if not keep.any():
+        return new
+    return {name: np.concatenate((old[name][keep], np.asarray(new[name], dtype=old[name].dtype)))
+            for name in new}
+
+
+def _write_bone(bag, pb, curves, merge):
+    path = pb.path_from_id(_rotation_property(pb))
+    for index, curve in enumerate(curves):
+        fc = anim_data.ensure_fcurve(bag, path, index, pb.name)
+        if merge:
+            keys = _merge_outside(fc, curve)
+        else:
+            keys = anim_data.bezier_keys(curve.key_frames, curve.key_values, curve.handle_left,
+                                         curve.handle_right, curve.handle_type)
+        anim_data.write_keyframes(fc, keys)
+    return sum(c.n_keys_after for c in curves)
+
+
+def _set_strip_influence(strip, value, frame):
+    """Strip influence held by one constant key (Blender ignores it unless animated)."""
+    strip.use_animated_influence = True
+    fc = strip.fcurves.find("influence")
+    anim_data.write_keys(fc, [frame], [value], 'LINEAR')
+
+
+def bake_influence(obj):
+    """The bake layer's influence (its key value at the strip start), or None without a bake."""
+    found = find_bake(obj)
+    if found is None:
+        return None
+    return found[1].fcurves.find("influence").evaluate(found[1].frame_start)
+
+
+def set_bake_influence(obj, value) -> bool:
+    """Set the bake layer's influence to a constant 0..1 (replacing any keys on it)."""
+    found = find_bake(obj)
+    if found is None:
+        return False
+    _set_strip_influence(found[1], min(max(float(value), 0.0), 1.0), found[1].frame_start)
+    return True
+
+
+# ---------------------------------------------------------------------------------------------
+# Layer arrangement
+# ---------------------------------------------------------------------------------------------
+
+def _push_down_base(obj, scene, frames, info):
+    """Move the active action into a strip on a new top track, evaluating as it did before."""
+    ad = obj.animation_data
+    act, slot = ad.action, ad.action_slot
+    had_tracks = len(ad.nla_tracks) > 0
+    info.update(pushed=1, blend_type=ad.action_blend_type, influence=ad.action_influence,
+                extrapolation=ad.action_extrapolation, slot_identifier=slot.identifier if slot else "")
+    top = ad.nla_tracks[-1] if had_tracks else None
+    ad.action = None
+    track = ad.nla_tracks.new(prev=top)
+    track.name = BASE_TRACK_NAME
+    strip = track.strips.new(act.name, int(np.floor(frames[0])), act)
+    strip.action_slot = slot
+    lo, hi = strip.action_frame_start, strip.action_frame_end  # the range Blender used before
+    if not had_tracks:  # it evaluated the action directly: cover everything that can play
+        lo, hi = min(lo, scene.frame_start, frames[0]), max(hi, scene.frame_end, frames[-1])
+    strip.action_frame_start, strip.action_frame_end = lo, hi
+    strip.frame_start_ui = lo
+    strip.blend_type, strip.extrapolation = info["blend_type"], info["extrapolation"]
+    if info["influence"] != 1.0:
+        _set_strip_influence(strip, info["influence"], lo)
+    return track
+
+
+def _add_layer(obj, frames, per_bone_curves, influence, info):
+    """Create the bake action and its COMBINE track on top. Returns (action, keys written)."""
+    ad = obj.animation_data
+    act = bpy.data.actions.new(bake_action_name(obj))
+    slot = act.slots.new(id_type='OBJECT', name=obj.name)
+    bag = anim_data.channelbag_for(act, slot, create=True)
+    keys = sum(_write_bone(bag, obj.pose.bones[n], curves, merge=False) for n, curves in per_bone_curves.items())
+    act[INFO_KEY] = info
+    track = ad.nla_tracks.new(prev=ad.nla_tracks[-1] if len(ad.nla_tracks) else None)
+    track.name = BAKE_TRACK_NAME
+    strip = track.strips.new(BAKE_TRACK_NAME, int(frames[0]), act)
+    strip.action_slot = slot
+    strip.blend_type, strip.extrapolation = 'COMBINE', 'NOTHING'
+    _set_strip_influence(strip, influence, frames[0])
+    ad.use_nla = True
+    return act, keys
+
+
+def unbaked_static_rotations(obj) -> dict:
+    """Rotation values that un-animated baked bones had before the bake (bone -> values).
+
+    Nothing animates those channels but the layer, so muting the layer leaves the last baked
+    value on the bone; whoever needs the animated pose writes these back first.
+    """
+    found = find_bake(obj)
+    if found is None:
+        return {}
+    return {k: list(v) for k, v in found[2][INFO_KEY].to_dict().get("static_rotations", {}).items()}
+
+
+def restore_static_rotations(obj, statics) -> None:
+    for name, values in statics.items():
+        pb = obj.pose.bones.get(name)
+        if pb is not None:
+            setattr(pb, _rotation_property(pb), values)
+
+
+def remove_bake(obj) -> bool:
+    """Delete the bake layer and its action; restore the animation data as it was. False if none."""
+    found = find_bake(obj)
+    if found is None:
+        return False
+    _check_object(obj)
+    track, _strip, act = found
+    info = act[INFO_KEY].to_dict()
+    ad = obj.animation_data
+    ad.nla_tracks.remove(track)
+    bpy.data.actions.remove(act)
+    base = ad.nla_tracks.get(BASE_TRACK_NAME)
+    if info.get("pushed") and base is not None and len(base.strips) == 1:
+        base_act, base_slot = base.strips[0].action, base.strips[0].action_slot
+        ad.nla_tracks.remove(base)
+        ad.action = base_act
+        if base_act is not None:
+            ad.action_slot = base_slot
+        ad.action_blend_type, ad.action_influence = info["blend_type"], info["influence"]
+        ad.action_extrapolation = info["extrapolation"]
+    ad.use_nla = bool(info.get("use_nla", True))
+    restore_static_rotations(obj, info.get("static_rotations", {}))
+    if info.get("created_animdata") and ad.action is None and not len(ad.nla_tracks) and not len(ad.drivers):
+        obj.animation_data_clear()
+    return True
+
+
+# ---------------------------------------------------------------------------------------------
+# The bake
+# ---------------------------------------------------------------------------------------------
+
+def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, influence=1.0,
+                 progress=None, scene=None) -> BakeStats:
+    """Bake per-frame rotation offsets of bones onto the "Overlap Bake" layer (or into the action).
+
+    Parameters
+    ----------
+    obj : armature Object
+    frames : array_like, shape (n,), whole frame numbers, increasing, n >= 2
+    offsets : {bone name: array_like, shape (n, 4)}, unit quaternions (w, x, y, z) to right-multiply
+        onto each bone's animated basis rotation (final = animated ∘ offset).
+    tolerance_deg : float, largest error of the written curves at every frame (0 keeps every frame)
+    into_action : bool, write animated ∘ offset into the user's action instead of a layer
+    influence : float, 0..1, the layer's influence (ignored with ``into_action``)
+    progress : callable(fraction 0..1) or None
+    scene : the scene whose frames are sampled (default: the context scene)
+
+    Raises
+    ------
+    BakeError
+        On bad input; nothing has been changed then.
+    """
+    scene = scene or bpy.context.scene
+    frames, offsets = _validate(obj, frames, offsets, tolerance_deg, influence)
+    if into_action:
+        ad = obj.animation_data
+        if ad is not None and len(ad.nla_tracks) and (ad.action_blend_type != 'REPLACE' or ad.action_influence != 1.0):
+            raise BakeError("Write into the action needs the action at blend Replace and influence 1: "
+                            "set them in the NLA editor or bake to a layer")
+    tol_rad = np.deg2rad(tolerance_deg)
+    report = progress or (lambda _f: None)
+    remove_bake(obj)  # re-bake replaces the layer; into_action must not stack onto it either
+    pose = obj.pose.bones
+    animated = anim_data.animated_paths(obj)
+    needs_sampling = [n for n in offsets if into_action or (pose[n].rotation_mode != 'QUATERNION'
+                                                              and pose[n].path_from_id("rotation_euler") in animated)]
+    sampled = sample_rotations(obj, scene, frames, needs_sampling, report) if needs_sampling else {}
+    info = {"created_animdata": int(obj.animation_data is None),
+            "use_nla": int(obj.animation_data.use_nla) if obj.animation_data else 1, "pushed": 0}
+    static = {}
+    per_bone, max_err = {}, 0.0
+    for i, (name, q_off) in enumerate(offsets.items()):
+        pb = pose[name]
+        is_quat = pb.rotation_mode == 'QUATERNION'
+        prop = _rotation_property(pb)
+        if name in sampled:
+            basis = sampled[name]
+        else:
+            basis = np.tile(np.array(getattr(pb, prop), dtype=np.float64), (len(frames), 1))
+        absolute = into_action or pb.path_from_id(prop) not in animated
+        if absolute and not into_action:
+            static[name] = [float(v) for v in getattr(pb, prop)]
+        if is_quat:
+            values = _continuous(_qmul(basis, q_off), basis[0]) if absolute else _continuous(q_off, (1, 0, 0, 0))
+        else:
+            composed = compose_euler(basis, pb.rotation_mode, q_off)
+            values = composed if absolute else composed - basis
+        per_bone[name], err = _reduce(frames, values, is_quat, tol_rad)
+        max_err = max(max_err, err)
+        report(0.5 + 0.4 * (i + 1) / len(offsets))
+    keys_before = sum(len(c) for c in per_bone.values()) * len(frames)
+    if into_action:
+        bag = anim_data.active_fcurves(obj, create=True)
+        keys = sum(_write_bone(bag, pose[n], curves, merge=True) for n, curves in per_bone.items())
+        action_name = obj.animation_data.action.name
+    else:
+        if obj.animation_data is None:
+            obj.animation_data_create()
+        if obj.animation_data.action is not None:
+            _push_down_base(obj, scene, frames, info)
+        info["static_rotations"] = static
+        act, keys = _add_layer(obj, frames, per_bone, influence, info)
+        action_name = act.name
+    scene.frame_set(scene.frame_current, subframe=scene.frame_subframe)  # show the result now
+    report(1.0)
+    return BakeStats(bones=tuple(offsets), n_frames=len(frames), keys_before=keys_before, keys_written=keys,
+                     max_error_deg=float(np.rad2deg(max_err)), action_name=action_name, into_action=into_action)

@@ -1,0 +1,142 @@
+"""Operators for the bake layer: remove it, and the confirmation "Write into the action" needs."""
+import bpy
+
+from ..core.errors import OverlapAssistError
+from . import bake_layer
+
+INTO_ACTION_WARNING = ("This replaces the rotation keys of the baked bones in your action over the baked "
+                       "frames. Undo (Ctrl+Z) brings them back")
+
+
+def confirm_into_action(operator, context, event):
+    """``invoke`` helper for a bake operator with an ``into_action`` option: confirm first.
+
+    Returns the operator's ``execute`` result directly when ``into_action`` is off.
+    """
+    if not getattr(operator.properties, "into_action", False):
+        return operator.execute(context)
+    return context.window_manager.invoke_confirm(
+        operator, event, title="Write into the action?", message=INTO_ACTION_WARNING,
+        confirm_text="Write Keys", icon='WARNING')
+
+
+class OVERLAP_ASSIST_OT_remove_bake(bpy.types.Operator):
+    """Delete the Overlap Bake layer and its action; the animation plays exactly as before the bake"""
+    bl_idname = "overlap_assist.remove_bake"
+    bl_label = "Remove Bake"
+    bl_options = {'REGISTER', 'UNDO'}
+
+    @classmethod
+    def poll(cls, context):
+        obj = context.active_object
+        if obj is None or obj.type != 'ARMATURE':
+            cls.poll_message_set("Select the character's armature")
+            return False
+        if not bake_layer.has_bake(obj):
+            cls.poll_message_set(f"{obj.name} has no {bake_layer.BAKE_TRACK_NAME} layer to remove")
+            return False
+        ad = obj.animation_data
+        if ad.use_tweak_mode:
+            cls.poll_message_set("Leave NLA tweak mode first (Tab in the NLA editor)")
+            return False
+        return True
+
+    def execute(self, context):
+        obj = context.active_object
+        try:
+            removed = bake_layer.remove_bake(obj)
+        except OverlapAssistError as exc:
+            self.report({'ERROR'}, str(exc))
+            return {'CANCELLED'}
+        if not removed:
+            self.report({'WARNING'}, f"{obj.name} has no {bake_layer.BAKE_TRACK_NAME} layer")
+            return {'CANCELLED'}
+        self.report({'INFO'}, f"Removed the {bake_layer.BAKE_TRACK_NAME} layer of {obj.name}")
+        return {'FINISHED'}
+
+
+def offsets_by_bone(sampled, offsets):
+    """{bone name: (n_frames, 4) offset quaternion} from the solver's per-chain arrays."""
+    out = {}
+    for names, offs in zip(sampled.bone_names, offsets):
+        for j, name in enumerate(names):
+            out[name] = offs[:, j]
+    return out
+
+
+def bake_chains(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False, progress=None):
+    """Sample, solve and bake ``chains``; returns (BakeStats, SampledRig, ChainMotion)."""
+    from . import chain_sim
+    sampled = chain_sim.sample_rig(obj, scene, chains, frame_start, frame_end,
+                                   progress=(lambda f: progress(0.4 * f)) if progress else None)
+    motion, offsets = chain_sim.solve(sampled, chain_sim.settings_for(obj, scene, chains))
+    if progress:
+        progress(0.5)
+    stats = bake_layer.bake_offsets(obj, sampled.frames.astype(int), offsets_by_bone(sampled, offsets),
+                                    tolerance_deg=tolerance_deg, into_action=into_action,
+                                    influence=obj.overlap_assist.bake_influence,
+                                    progress=(lambda f: progress(0.5 + 0.5 * f)) if progress else None,
+                                    scene=scene)
+    return stats, sampled, motion
+
+
+class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
+    """Simulate the chains and bake them to editable keys on the Overlap Bake layer (the animation itself is kept)"""
+    bl_idname = "overlap_assist.bake_chains"
+    bl_label = "Bake Chains"
+    bl_options = {'REGISTER', 'UNDO'}
+
+    into_action: bpy.props.BoolProperty(
+        name="Write into the action", default=False,
+        description="Write the result into your action instead of a separate layer (asks first)")
+
+    @classmethod
+    def poll(cls, context):
+        obj = context.active_object
+        if obj is None or obj.type != 'ARMATURE':
+            cls.poll_message_set("Select the character's armature")
+            return False
+        if not len(obj.overlap_assist.chains):
+            cls.poll_message_set("Add chains first (Chains panel)")
+            return False
+        return True
+
+    def invoke(self, context, event):
+        return confirm_into_action(self, context, event)
+
+    def execute(self, context):
+        from . import chain_sim
+        obj, scene = context.active_object, context.scene
+        s = obj.overlap_assist
+        wm = context.window_manager
+        wm.progress_begin(0, 100)
+        try:
+            names = None
+            if s.bake_scope == "SELECTED":
+                names = {c.name for c in s.chains if any(_bone_selected(obj, b) for b in c.bone_names())}
+                if not names:
+                    raise OverlapAssistError("no chain has a selected bone: select chain bones or bake all chains")
+            chains = chain_sim.active_chains(obj, names)
+            start, end = (s.bake_frame_start, s.bake_frame_end) if s.bake_use_range else \
+                (scene.frame_start, scene.frame_end)
+            stats, _, _ = bake_chains(obj, scene, chains, start, end, s.bake_tolerance_deg,
+                                      into_action=self.into_action,
+                                      progress=lambda f: wm.progress_update(int(100 * f)))
+        except OverlapAssistError as exc:
+            self.report({'ERROR'}, str(exc))
+            return {'CANCELLED'}
+        finally:
+            wm.progress_end()
+        s.last_bake = f"{len(chains)} chains: {stats.summary()}"
+        self.report({'INFO'}, f"{len(chains)} chains, " + stats.summary())
+        return {'FINISHED'}
+
+
+def _bone_selected(obj, name):
+    pb = obj.pose.bones.get(name)
+    if pb is None:
+        return False
+    return pb.select if hasattr(pb, "select") else obj.data.bones[name].select
+
+
+classes = (OVERLAP_ASSIST_OT_remove_bake, OVERLAP_ASSIST_OT_bake_chains)

@@ -1,0 +1,160 @@
+"""Chains on the rig → core solver → per-frame rotation offsets of the chain bones.
+
+Sampling reads the *animated* pose: the live preview is held off and the baked layer muted
+while sampling, so the solver never feeds on its own output. Everything is in metres and
+seconds at the core boundary; frames are whole frames of the scene.
+"""
+import contextlib
+from dataclasses import dataclass
+
+import bpy
+import numpy as np
+
+from ..core.chain_solver import simulate_chains
+from ..core.chain_types import ChainInput, Colliders
+from ..core.errors import InputError, InvalidChainError
+from ..core.rotations import quat_from_matrix
+from .sample_body import gravity_mps2
+
+from .bake_layer import BAKE_TRACK_NAME as BAKE_TRACK
+
+
+@dataclass
+class SampledRig:
+    """Animated motion of an armature's chains and colliders over whole frames."""
+    frames: np.ndarray             # (n,)
+    chain_names: list              # chain item names, in order
+    bone_names: list               # per chain: list of bone names
+    inputs: list                   # per chain: ChainInput
+    world_rot: list                # per chain: (n, n_links, 4) animated world rotations (w, x, y, z)
+    basis_rot: list                # per chain: (n, n_links, 4) animated pose-basis rotations (w, x, y, z)
+    colliders: Colliders
+    gravity_mps2: np.ndarray
+    dt_s: float
+
+
+def chain_problem(obj, chain):
+    """A line saying what is wrong with ``chain`` on ``obj`` (None if it can be simulated)."""
+    names = chain.bone_names()
+    if not names:
+        return "has no bones: remove it and add it again from a selection"
+    missing = [n for n in names if n not in obj.data.bones]
+    if missing:
+        return f"bone{'s' if len(missing) > 1 else ''} {', '.join(missing)} not found (renamed or deleted?)"
+    zero = [n for n in names if obj.data.bones[n].length <= 0]
+    if zero:
+        return f"bone {zero[0]} has no length"
+    return None
+
+
+def active_chains(obj, names=None):
+    """Chains to simulate: unmuted, optionally only those named; problems raise a clear error."""
+    chains = [c for c in obj.overlap_assist.chains if not c.mute and (names is None or c.name in names)]
+    if not chains:
+        raise InputError(f"'{obj.name}' has no chains to simulate: select chain bones and use Add Chains from Selection")
+    for c in chains:
+        problem = chain_problem(obj, c)
+        if problem:
+            raise InvalidChainError(f"chain '{c.name}' {problem}")
+    return chains
+
+
+@contextlib.contextmanager
+def animated_pose_only(obj):
+    """Hold the preview off and mute the baked layer while sampling the animated pose."""
+    from . import bake_layer, preview
+    ad = obj.animation_data
+    track = ad.nla_tracks.get(BAKE_TRACK) if ad else None
+    was_muted = track.mute if track else None
+    if track:
+        track.mute = True
+        bake_layer.restore_static_rotations(obj, bake_layer.unbaked_static_rotations(obj))
+    with preview.suspended():
+        try:
+            yield
+        finally:
+            if track:
+                track.mute = was_muted
+
+
+def sample_rig(obj, scene, chains, frame_start, frame_end, progress=None) -> SampledRig:
+    """Sample chain bones and collider bones at every whole frame (restores the current frame)."""
+    if frame_end <= frame_start:
+        raise InputError(f"frame range {frame_start}-{frame_end} is empty: set an end frame after the start frame")
+    settings = obj.overlap_assist
+    scale = scene.unit_settings.scale_length
+    frames = np.arange(frame_start, frame_end + 1, dtype=float)
+    chain_bones = [c.bone_names() for c in chains]
+    colliders = [c for c in settings.colliders if c.bone in obj.data.bones]
+    bad = [c.bone for c in settings.colliders if c.bone not in obj.data.bones]
+    if bad:
+        raise InputError(f"collider bone{'s' if len(bad) > 1 else ''} {', '.join(bad)} not found: "
+                         "pick existing bones or remove those colliders")
+    pbones = obj.pose.bones
+    index = {b.name: i for i, b in enumerate(pbones)}
+    needed = sorted({n for names in chain_bones for n in names} | {c.bone for c in colliders})
+    idx = np.array([index[n] for n in needed], dtype=int)
+    pos = {n: i for i, n in enumerate(needed)}
+    lengths = np.array([obj.data.bones[n].length for n in needed])
+    nb = len(pbones)
+    buf = np.empty(nb * 16, dtype=np.float32)
+    mats = np.empty((frames.size, idx.size, 4, 4))
+    basis = np.empty((frames.size, idx.size, 3, 3))
+    saved = (scene.frame_current, scene.frame_subframe)
+    with animated_pose_only(obj):
+        try:
+            for k, f in enumerate(frames):
+                scene.frame_set(int(f))
+                pbones.foreach_get("matrix", buf)
+                local = buf.reshape(nb, 4, 4).transpose(0, 2, 1)[idx].astype(float)
+                mats[k] = np.array(obj.matrix_world, dtype=float) @ local
+                pbones.foreach_get("matrix_basis", buf)
+                basis[k] = buf.reshape(nb, 4, 4).transpose(0, 2, 1)[idx, :3, :3]
+                if progress is not None and k % 16 == 0:
+                    progress(k / frames.size)
+        finally:
+            scene.frame_set(saved[0], subframe=saved[1])
+    heads = mats[:, :, :3, 3] * scale
+    y_axes = mats[:, :, :3, 1]
+    tails = heads + y_axes * lengths[None, :, None] * scale
+    inputs, world_rot, basis_rot = [], [], []
+    for names in chain_bones:
+        sel = [pos[n] for n in names]
+        y = y_axes[:, sel]
+        seg_len = np.linalg.norm(tails[0, sel] - heads[0, sel], axis=-1)
+        inputs.append(ChainInput(pivot_pos_m=heads[:, sel[0]],
+                                 target_dirs=y / np.linalg.norm(y, axis=-1, keepdims=True),
+                                 lengths_m=seg_len))
+        world_rot.append(quat_from_matrix(mats[:, sel, :3, :3]))
+        basis_rot.append(quat_from_matrix(basis[:, sel]))
+    spheres = [c for c in colliders if c.shape == "SPHERE"]
+    capsules = [c for c in colliders if c.shape == "CAPSULE"]
+    n = frames.size
+
+    def stack(items, arr):
+        return np.stack([arr[:, pos[c.bone]] for c in items], axis=1) if items else np.zeros((n, 0, 3))
+
+    coll = Colliders(
+        sphere_centres_m=stack(spheres, 0.5 * (heads + tails)),
+        sphere_radii_m=np.array([c.radius * scale for c in spheres]),
+        capsule_a_m=stack(capsules, heads), capsule_b_m=stack(capsules, tails),
+        capsule_radii_m=np.array([c.radius * scale for c in capsules]),
+        ground_height_m=settings.ground_height * scale if settings.use_ground else None)
+    fps = scene.render.fps / scene.render.fps_base
+    return SampledRig(frames=frames, chain_names=[c.name for c in chains], bone_names=chain_bones, inputs=inputs,
+                      world_rot=world_rot, basis_rot=basis_rot, colliders=coll,
+                      gravity_mps2=gravity_mps2(scene, settings.body.gravity_source), dt_s=1.0 / fps)
+
+
+def solve(sampled: SampledRig, chain_settings):
+    """Run the solver; returns (ChainMotion, offsets per chain (n, n_links, 4) in the bones' local frames)."""
+    from ..core.swing import swing_offsets
+    motion = simulate_chains(sampled.inputs, chain_settings, sampled.gravity_mps2, sampled.dt_s, sampled.colliders)
+    offsets = [swing_offsets(rot, inp.target_dirs, dirs)
+               for rot, inp, dirs in zip(sampled.world_rot, sampled.inputs, motion.dirs)]
+    return motion, offsets
+
+
+def settings_for(obj, scene, chains):
+    fps = scene.render.fps / scene.render.fps_base
+    return [c.chain_settings(fps, scene.unit_settings.scale_length) for c in chains]

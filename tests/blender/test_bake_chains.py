@@ -1,0 +1,85 @@
+"""Bake Chains end to end in real Blender: solve → layer → Blender's own evaluation."""
+import bpy
+import numpy as np
+import pytest
+
+from overlap_assist.blender import anim_data, bake_layer
+from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
+from overlap_assist.core.jump_curves import JumpSpec
+
+TAIL = (
+    ("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
+    ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)),
+    ("tail.003", "tail.002", (0, 0.30, 0.78), (0, 0.36, 0.64)),
+)
+NAMES = [b[0] for b in TAIL]
+
+
+def op(obj, name, **kw):
+    with bpy.context.temp_override(active_object=obj, object=obj):
+        return getattr(bpy.ops.overlap_assist, name)(**kw)
+
+
+@pytest.fixture
+def rig():
+    bpy.context.scene.gravity = (0, 0, -9.80665)
+    obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
+    key_jump(obj, JumpSpec(forward_mps=1.0))
+    for pb in obj.pose.bones:
+        if hasattr(pb, "select"):
+            pb.select = pb.name in NAMES
+        else:
+            obj.data.bones[pb.name].select = pb.name in NAMES
+    op(obj, "add_chains", preset="heavy_tail")
+    return obj
+
+
+def _poses(obj, frames):
+    scene = bpy.context.scene
+    out = []
+    for f in frames:
+        scene.frame_set(f)
+        out.append([np.array(obj.pose.bones[n].matrix) for n in NAMES])
+    return np.array(out)
+
+
+def test_bake_matches_the_preview_and_remove_restores(rig):
+    from overlap_assist.blender import preview
+    frames = [10, 28, 35, 44, 60]
+    animated = _poses(rig, frames)
+    op(rig, "toggle_preview")
+    previewed = _poses(rig, frames)
+    op(rig, "toggle_preview")
+    assert op(rig, "bake_chains") == {'FINISHED'}
+    assert bake_layer.has_bake(rig)
+    assert rig.overlap_assist.last_bake.startswith("1 chains: Baked")
+    baked = _poses(rig, frames)
+    # The bake is the preview in keys: the same solve, written with ≤ 0.5° key tolerance.
+    assert np.abs(baked - previewed).max() < 0.02
+    assert np.abs(baked - animated).max() > 0.01
+    assert not preview.PREVIEW.is_on(rig)
+    # Baking again gives the same keys (same inputs, deterministic solver).
+    act = bpy.data.actions[bake_layer.bake_action_name(rig)]
+    first = [tuple(k.co) for fc in anim_data.all_action_fcurves(act) for k in fc.keyframe_points]
+    op(rig, "bake_chains")
+    act = bpy.data.actions[bake_layer.bake_action_name(rig)]
+    assert [tuple(k.co) for fc in anim_data.all_action_fcurves(act) for k in fc.keyframe_points] == first
+    assert op(rig, "remove_bake") == {'FINISHED'}
+    np.testing.assert_array_equal(_poses(rig, frames), animated)
+
+
+def test_analysis_after_a_bake_keeps_the_layer(rig):
+    op(rig, "bake_chains")
+    assert op(rig, "analyze_motion") == {'FINISHED'}
+    assert rig.animation_data.action is None and bake_layer.has_bake(rig)
+
+
+def test_bake_with_a_deleted_chain_bone_is_refused_and_changes_nothing(rig):
+    bpy.context.view_layer.objects.active = rig
+    bpy.ops.object.mode_set(mode='EDIT')
+    rig.data.edit_bones.remove(rig.data.edit_bones["tail.002"])
+    bpy.ops.object.mode_set(mode='OBJECT')
+    n_actions = len(bpy.data.actions)
+    with pytest.raises(RuntimeError, match="tail.002 not found"):
+        op(rig, "bake_chains")
+    assert not bake_layer.has_bake(rig) and len(bpy.data.actions) == n_actions

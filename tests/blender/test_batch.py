@@ -1,0 +1,101 @@
+"""Batch mode: worker processes, one failure does not stop the rest, skips up-to-date outputs,
+never runs embedded scripts."""
+import json
+import os
+import pathlib
+import subprocess
+import sys
+import textwrap
+
+import bpy
+import pytest
+
+from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
+from overlap_assist.core.jump_curves import JumpSpec
+
+ROOT = pathlib.Path(__file__).resolve().parents[2]
+TAIL = (("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
+        ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)))
+
+
+def run_cli(*args, timeout=900):
+    return subprocess.run([sys.executable, "-m", "overlap_assist", *args], cwd=ROOT, capture_output=True,
+                          text=True, timeout=timeout)
+
+
+def make_clip(path, with_chain):
+    bpy.ops.wm.read_factory_settings(use_empty=True)
+    bpy.context.scene.gravity = (0, 0, -9.80665)
+    obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
+    key_jump(obj, JumpSpec(forward_mps=1.0))
+    if with_chain:
+        c = obj.overlap_assist.chains.add()
+        c.name = "tail"
+        for n in ("tail.001", "tail.002"):
+            c.bones.add().name = n
+    bpy.ops.wm.save_as_mainfile(filepath=str(path), copy=True)
+    return str(path)
+
+
+def test_batch_over_three_files_with_one_corrupt(tmp_path):
+    src = tmp_path / "in"
+    src.mkdir()
+    make_clip(src / "a.blend", with_chain=True)
+    make_clip(src / "b.blend", with_chain=False)
+    (src / "c.blend").write_bytes(b"BLENDER-v405 this is not a blend file" * 10)
+    out = tmp_path / "out"
+    proc = run_cli("batch", str(src / "*.blend"), "--out", str(out), "--jobs", "2")
+    assert proc.returncode == 1, proc.stderr[-2000:]
+    log = json.loads((out / "batch_log.json").read_text())
+    status = {pathlib.Path(r["input"]).name: r for r in log["rows"]}
+    assert status["a.blend"]["status"] == "ok" and status["b.blend"]["status"] == "ok"
+    assert status["c.blend"]["status"] == "failed" and "cannot read" in status["c.blend"]["message"]
+    assert (out / "a.baked.blend").is_file() and not (out / "b.baked.blend").exists()
+    for stem in ("a", "b"):
+        assert "<svg" in (out / f"{stem}.report.html").read_text()
+        assert json.loads((out / f"{stem}.analysis.json").read_text())["flights"]
+    assert "2 processed, 0 up to date, 1 failed" in proc.stdout
+    assert not [p for p in out.iterdir() if ".tmp" in p.name]
+    # Re-running skips what is up to date; touching an input re-processes only that one.
+    again = run_cli("batch", str(src / "a.blend"), str(src / "b.blend"), "--out", str(out))
+    assert again.returncode == 0 and "0 processed, 2 up to date, 0 failed" in again.stdout
+    make_clip(src / "b.blend", with_chain=True)
+    third = run_cli("batch", str(src / "a.blend"), str(src / "b.blend"), "--out", str(out))
+    assert "1 processed, 1 up to date, 0 failed" in third.stdout
+    assert (out / "b.baked.blend").is_file()
+
+
+def test_batch_never_runs_embedded_scripts(tmp_path):
+    marker = tmp_path / "pwned.txt"
+    blend = tmp_path / "evil.blend"
+    make = textwrap.dedent(f"""
+        import bpy, sys
+        sys.path.insert(0, {str(ROOT)!r})
+        from overlap_assist.blender.demo_scene import build_armature, key_jump
+        obj = build_armature("Hero")
+        key_jump(obj)
+        txt = bpy.data.texts.new("boot.py")
+        txt.write("open({str(marker)!r}, 'w').write('text block ran')\\n")
+        txt.use_module = True
+        obj["x"] = 0.0
+        fc = obj.driver_add('["x"]')
+        fc.driver.type = 'SCRIPTED'
+        fc.driver.expression = "__import__('builtins').open({str(marker)!r}, 'w').write('driver ran') or 0"
+        bpy.ops.wm.save_as_mainfile(filepath={str(blend)!r})
+        bpy.ops.wm.read_factory_settings(use_empty=True)
+    """)
+    subprocess.run([sys.executable, "-c", make], check=True, capture_output=True, timeout=300)
+    marker.unlink(missing_ok=True)
+    proc = run_cli("batch", str(blend), "--out", str(tmp_path / "out"))
+    assert proc.returncode == 0, proc.stdout + proc.stderr[-2000:]
+    for args in (("simulate", str(blend), "--chain", "hips"),
+                 ("bake", str(blend), "--out", str(tmp_path / "b.blend"), "--chain", "hips")):
+        run_cli(*args)
+    assert not marker.exists(), marker.read_text()
+
+
+def test_missing_input_is_reported_and_the_rest_continue(tmp_path):
+    good = make_clip(tmp_path / "good.blend", with_chain=False)
+    proc = run_cli("batch", good, str(tmp_path / "missing.blend"), "--out", str(tmp_path / "out"))
+    assert proc.returncode == 1
+    assert "1 processed, 0 up to date, 1 failed" in proc.stdout and "no such file" in proc.stdout
