@@ -45,7 +45,7 @@ import numpy as np
 from mathutils import Euler, Quaternion
 
 from ..core.errors import OverlapAssistError
-from ..core.key_reduce import evaluate_keys, reduce_euler_curves, reduce_quaternion_curves
+from ..core.key_reduce import evaluate_keys, reduce_euler_groups, reduce_quaternion_groups
 from . import anim_data
 
 BAKE_TRACK_NAME = "Overlap Bake"
@@ -231,18 +231,30 @@ def sample_rotations(obj, scene, frames, names, progress=None):
 # Reduction and writing
 # ---------------------------------------------------------------------------------------------
 
-def _reduce(frames, values, is_quaternion, tol_rad):
-    """(curves, max error rad) for one bone's channel values (n, 4) or (n, 3)."""
-    if is_quaternion:
-        curves = reduce_quaternion_curves(frames, values, tol_rad)
-        q = values / np.linalg.norm(values, axis=1, keepdims=True)
-        a = np.stack([evaluate_keys(c, frames) for c in curves], axis=1)
-        a /= np.linalg.norm(a, axis=1, keepdims=True)
-        b = np.where(np.sum(a * q, axis=1, keepdims=True) < 0.0, -q, q)
-        err = 4.0 * np.arctan2(np.linalg.norm(a - b, axis=1), np.linalg.norm(a + b, axis=1))
-        return curves, float(err.max())
-    curves = reduce_euler_curves(frames, values, tol_rad)
-    return curves, max(c.max_error for c in curves)
+def _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad):
+    """Reduce every bone's channel values at once (one batched call per rotation kind).
+
+    Returns ({bone: curves}, max error in radians: rotation angle for quaternions, per channel for Euler).
+    """
+    out, max_err = {}, 0.0
+    quat_names = [n for n in values_by_bone if n in quaternion_bones]
+    euler_names = [n for n in values_by_bone if n not in quaternion_bones]
+    if quat_names:
+        stacked = np.stack([values_by_bone[n] for n in quat_names])
+        for name, curves, values in zip(quat_names, reduce_quaternion_groups(frames, stacked, tol_rad), stacked):
+            out[name] = curves
+            q = values / np.linalg.norm(values, axis=1, keepdims=True)
+            a = np.stack([evaluate_keys(c, frames) for c in curves], axis=1)
+            a /= np.linalg.norm(a, axis=1, keepdims=True)
+            b = np.where(np.sum(a * q, axis=1, keepdims=True) < 0.0, -q, q)
+            err = 4.0 * np.arctan2(np.linalg.norm(a - b, axis=1), np.linalg.norm(a + b, axis=1))
+            max_err = max(max_err, float(err.max()))
+    if euler_names:
+        stacked = np.stack([values_by_bone[n] for n in euler_names])
+        for name, curves in zip(euler_names, reduce_euler_groups(frames, stacked, tol_rad)):
+            out[name] = curves
+            max_err = max(max_err, max(c.max_error for c in curves))
+    return {n: out[n] for n in values_by_bone}, max_err
 
 
 def _merge_outside(fc, curve):
@@ -429,7 +441,7 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     info = {"created_animdata": int(obj.animation_data is None),
             "use_nla": int(obj.animation_data.use_nla) if obj.animation_data else 1, "pushed": 0}
     static = {}
-    per_bone, max_err = {}, 0.0
+    values_by_bone, quaternion_bones = {}, set()
     for i, (name, q_off) in enumerate(offsets.items()):
         pb = pose[name]
         is_quat = pb.rotation_mode == 'QUATERNION'
@@ -442,13 +454,15 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
         if absolute and not into_action:
             static[name] = [float(v) for v in getattr(pb, prop)]
         if is_quat:
+            quaternion_bones.add(name)
             values = _continuous(_qmul(basis, q_off), basis[0]) if absolute else _continuous(q_off, (1, 0, 0, 0))
         else:
             composed = compose_euler(basis, pb.rotation_mode, q_off)
             values = composed if absolute else composed - basis
-        per_bone[name], err = _reduce(frames, values, is_quat, tol_rad)
-        max_err = max(max_err, err)
-        report(0.5 + 0.4 * (i + 1) / len(offsets))
+        values_by_bone[name] = values
+        report(0.5 + 0.2 * (i + 1) / len(offsets))
+    per_bone, max_err = _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad)
+    report(0.9)
     keys_before = sum(len(c) for c in per_bone.values()) * len(frames)
     if into_action:
         bag = anim_data.active_fcurves(obj, create=True)

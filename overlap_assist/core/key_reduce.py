@@ -49,6 +49,8 @@ __all__ = [
     "reduce_curves",
     "reduce_quaternion_curves",
     "reduce_euler_curves",
+    "reduce_quaternion_groups",
+    "reduce_euler_groups",
     "FLOAT32_MARGIN_REL",
 ]
 
@@ -398,11 +400,23 @@ def reduce_euler_curves(frames, eulers, tolerance_rad: float) -> list[ReducedCur
     -------
     list of 3 ReducedCurve (x, y, z) with identical ``key_frames``.
     """
-    frames, eulers, tolerance_rad = _validate(frames, np.asarray(eulers, dtype=np.float64).T, tolerance_rad, "eulers.T")
-    if eulers.shape[0] != 3:
-        raise InputError(f"eulers must have shape (n_frames, 3), got {eulers.T.shape}")
-    grouped = eulers.T[None]  # (1, n_frames, 3)
-    return _reduce_groups(frames, grouped, tolerance_rad, _float32_margin(frames, grouped), _abs_error)[0]
+    eulers = np.asarray(eulers, dtype=np.float64)
+    if eulers.ndim != 2 or eulers.shape[1] != 3:
+        raise InputError(f"eulers must have shape (n_frames, 3), got {eulers.shape}")
+    return reduce_euler_groups(frames, eulers[None], tolerance_rad)[0]
+
+
+def reduce_euler_groups(frames, eulers, tolerance_rad: float) -> list[list[ReducedCurve]]:
+    """:func:`reduce_euler_curves` for many rotations at once, eulers shape (n_rotations, n_frames, 3)."""
+    eulers = np.asarray(eulers, dtype=np.float64)
+    if eulers.ndim != 3 or eulers.shape[2] != 3:
+        raise InputError(f"eulers must have shape (n_rotations, n_frames, 3), got {eulers.shape}")
+    groups = []
+    for g in range(eulers.shape[0]):
+        frames_v, e_t, tolerance_rad = _validate(frames, eulers[g].T, tolerance_rad, "eulers.T")
+        groups.append(e_t.T)
+    grouped = np.stack(groups)
+    return _reduce_groups(frames_v, grouped, tolerance_rad, _float32_margin(frames_v, grouped), _abs_error)
 
 
 def reduce_quaternion_curves(frames, quats, tolerance_rad: float) -> list[ReducedCurve]:
@@ -426,17 +440,41 @@ def reduce_quaternion_curves(frames, quats, tolerance_rad: float) -> list[Reduce
     list of 4 ReducedCurve (w, x, y, z) with identical ``key_frames``; their ``key_values`` are
     the normalised, hemisphere-continuous samples.
     """
-    frames, quats_t, tolerance_rad = _validate(frames, np.asarray(quats, dtype=np.float64).T, tolerance_rad, "quats.T")
-    if quats_t.shape[0] != 4:
-        raise InputError(f"quats must have shape (n_frames, 4), got {quats_t.T.shape}")
-    q = quats_t.T
-    norm = np.linalg.norm(q, axis=1, keepdims=True)
+    quats = np.asarray(quats, dtype=np.float64)
+    if quats.ndim != 2 or quats.shape[1] != 4:
+        raise InputError(f"quats must have shape (n_frames, 4), got {quats.shape}")
+    return reduce_quaternion_groups(frames, quats[None], tolerance_rad)[0]
+
+
+def reduce_quaternion_groups(frames, quats, tolerance_rad: float) -> list[list[ReducedCurve]]:
+    """:func:`reduce_quaternion_curves` for many rotations at once (one numpy pass per split level).
+
+    Parameters
+    ----------
+    frames : array_like, shape (n_frames,)
+    quats : array_like, shape (n_rotations, n_frames, 4), (w, x, y, z), non-zero
+    tolerance_rad : float
+
+    Returns
+    -------
+    list (per rotation) of 4 ReducedCurve sharing their key frames.
+    """
+    quats = np.asarray(quats, dtype=np.float64)
+    if quats.ndim != 3 or quats.shape[2] != 4:
+        raise InputError(f"quats must have shape (n_rotations, n_frames, 4), got {quats.shape}")
+    groups = []
+    for g in range(quats.shape[0]):
+        frames_v, quats_t, tolerance_rad = _validate(frames, quats[g].T, tolerance_rad, "quats.T")
+        groups.append(quats_t.T)
+    frames = frames_v
+    q = np.stack(groups)
+    norm = np.linalg.norm(q, axis=2, keepdims=True)
     if np.any(norm < 1e-6):
         raise InputError("quats contains a zero-length quaternion")
     q = q / norm
-    flips = np.concatenate(([False], np.sum(q[1:] * q[:-1], axis=1) < 0.0))
-    q = q * np.where(np.cumsum(flips) % 2 == 1, -1.0, 1.0)[:, None]
+    flips = np.concatenate((np.zeros((q.shape[0], 1), bool), np.sum(q[:, 1:] * q[:, :-1], axis=2) < 0.0), axis=1)
+    q = q * np.where(np.cumsum(flips, axis=1) % 2 == 1, -1.0, 1.0)[:, :, None]
     # An error e in each of the 4 components moves the quaternion by at most 2e and the rotation
     # angle by about twice that.
-    margin_rad = 4.0 * _float32_margin(frames, q[None])
-    return _reduce_groups(frames, q[None], tolerance_rad, margin_rad, _quaternion_angle_error)[0]
+    margin_rad = 4.0 * _float32_margin(frames, q)
+    return _reduce_groups(frames, q, tolerance_rad, margin_rad, _quaternion_angle_error)

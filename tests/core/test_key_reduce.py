@@ -359,3 +359,29 @@ def test_inputs_are_not_modified_and_results_are_read_only():
     np.testing.assert_array_equal(quats, before)
     with pytest.raises(ValueError):
         curves[0].key_values[0] = 1.0
+
+
+def test_grouped_reduction_equals_one_rotation_at_a_time():
+    # The batched entry points must give exactly what the single-rotation ones give.
+    from overlap_assist.core.key_reduce import reduce_euler_groups, reduce_quaternion_groups
+    rng = np.random.default_rng(7)
+    frames = np.arange(1.0, 121.0)
+    t = (frames - 1) / 24
+    quats, eulers = [], []
+    for _ in range(5):
+        amp, f, zeta = rng.uniform(0.1, 0.6), rng.uniform(0.5, 3.0), rng.uniform(0.05, 0.4)
+        ang = amp * np.exp(-zeta * 2 * np.pi * f * t) * np.sin(2 * np.pi * f * t)
+        axis = rng.normal(size=3)
+        axis /= np.linalg.norm(axis)
+        quats.append(np.column_stack([np.cos(ang / 2), np.outer(np.sin(ang / 2), axis)]))
+        eulers.append(np.column_stack([ang, 0.5 * ang, -ang]))
+    tol = np.deg2rad(0.5)
+    for grouped, single, data in ((reduce_quaternion_groups, reduce_quaternion_curves, quats),
+                                  (reduce_euler_groups, reduce_euler_curves, eulers)):
+        batch = grouped(frames, np.stack(data), tol)
+        for g, one in enumerate(data):
+            ref = single(frames, one, tol)
+            for a, b in zip(batch[g], ref):
+                np.testing.assert_array_equal(a.key_frames, b.key_frames)
+                np.testing.assert_array_equal(a.key_values, b.key_values)
+                np.testing.assert_array_equal(a.handle_left, b.handle_left)
