@@ -21,6 +21,7 @@ class PreviewCache:
     def __init__(self):
         self.sampled = None           # chain_sim.SampledRig
         self.offsets = None           # per chain (n, n_links, 4)
+        self.posed = None             # per chain (n, n_links, 4): animated basis ∘ offset, as lists per frame
         self.motion = None
         self.solve_dirty = True
         self.sample_dirty = True
@@ -92,21 +93,28 @@ class PreviewOwner:
             cache.sample_dirty, cache.solve_dirty = False, True
         if cache.solve_dirty:
             cache.motion, cache.offsets = chain_sim.solve(cache.sampled, chain_sim.settings_for(obj, scene, chains))
+            # Compose once per solve, so a frame change only copies numbers onto bones.
+            posed = np.concatenate([quat_multiply(b, o) for b, o in zip(cache.sampled.basis_rot, cache.offsets)],
+                                   axis=1)
+            cache.posed = posed.tolist()
             cache.solve_dirty = False
         return cache
 
     def apply(self, obj, scene):
         cache = self.caches.get(obj.name)
-        if cache is None or cache.sampled is None or cache.offsets is None:
+        if cache is None or cache.sampled is None or cache.posed is None:
             return
         k = int(round(scene.frame_current - cache.sampled.frames[0]))
-        if not 0 <= k < cache.sampled.frames.size:
+        if not 0 <= k < len(cache.posed):
             return
         pbones = obj.pose.bones
-        for names, basis, offs in zip(cache.sampled.bone_names, cache.sampled.basis_rot, cache.offsets):
-            posed = quat_multiply(basis[k], offs[k])
-            for j, name in enumerate(names):
-                _write_quaternion(pbones[name], posed[j])
+        names = [n for chain in cache.sampled.bone_names for n in chain]
+        for name, q in zip(names, cache.posed[k]):
+            pb = pbones[name]
+            if pb.rotation_mode == 'QUATERNION':
+                pb.rotation_quaternion = q
+            else:
+                _write_quaternion(pb, q)
 
 
 PREVIEW = PreviewOwner()
