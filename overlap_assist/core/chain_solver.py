@@ -117,7 +117,7 @@ def simulate_chains(
         d, u, _ = _collide(prep, coll, prep["pivots"][0], 0, 0.0, d, u)
     d = np.moveaxis(d, -1, 0).reshape(flat)
     u = np.moveaxis(u, -1, 0).reshape(flat)
-    accel = np.zeros(flat)
+    change = np.zeros(flat)
     out = np.empty((n_frames,) + flat)
     out[0] = d
     contacts = np.zeros((n_chains, n_links), dtype=np.int64)
@@ -147,7 +147,7 @@ def simulate_chains(
             spin_rows = (spin_a[i], spin_b[i]) if turning[i] else None
             t_mid_k, felt_k = t_mid[i], felt[i]
             for j in range(n_sub):
-                d, u, accel = step(d, u, accel, t_mid_k[j], spin_rows, felt_k[j], co)
+                d, u, change = step(d, u, change, t_mid_k[j], spin_rows, felt_k[j], co)
                 if limit:
                     d, u = limit_bend(d, u, t_end[i, j], co.cos_lim, co.sin_lim)
                 if coll is not None:
@@ -176,7 +176,7 @@ class _Coefficients:
     """
 
     __slots__ = (
-        "h", "half_h", "inv_h", "shape", "length", "drag", "any_drag", "any_relative", "lever",
+        "h", "half_h", "shape", "length", "length_per_h", "length_drag", "any_drag", "any_relative", "lever",
         "k2", "damp", "one_plus_damp", "quarter_h2", "q_scale", "q2_scale", "cos_lim", "sin_lim",
     )
 
@@ -194,10 +194,10 @@ def _coefficients(prep: dict, h: float) -> _Coefficients:
     lever = ROD_LEVER / prep["lengths_safe"]
     co.h = h
     co.half_h = 0.5 * h
-    co.inv_h = 1.0 / h
     co.shape = (3, n_chains, n_links)
     co.length = rows(prep["lengths_active"])
-    co.drag = rows(prep["drag"][:, :, 0])
+    co.length_per_h = co.length / h
+    co.length_drag = co.length * rows(prep["drag"][:, :, 0])
     co.any_drag = bool(np.any(prep["drag"] > 0.0))
     co.any_relative = bool(np.any(prep["relative_share"] > 0.0))
     co.lever = rows(lever)
@@ -218,7 +218,7 @@ _ONES33 = np.ones((3, 3))
 
 _I1 = np.array([1, 2, 0])
 _I2 = np.array([2, 0, 1])
-def step(d, u, accel, target, spin_rows, felt, co):
+def step(d, u, change, target, spin_rows, felt, co):
     """Advance all links of all chains by one sub-step (pure: returns new arrays).
 
     Arrays are component-first, ``(3, M)`` for the M = C*N (padded) links of C chains; the
@@ -226,9 +226,9 @@ def step(d, u, accel, target, spin_rows, felt, co):
 
     Parameters
     ----------
-    d, u, accel : ndarray, shape (3, M)
-        Directions (unit), their rates (1/s, perpendicular to d) and the rates' change per
-        second over the last sub-step (1/s^2).
+    d, u, change : ndarray, shape (3, M)
+        Directions (unit), their rates (1/s, perpendicular to d) and the rates' change over
+        the last sub-step (1/s).
     target : ndarray, shape (3, M)
         Animated directions at mid-step.
     spin_rows : tuple of two ndarray (3, M), or None
@@ -240,14 +240,13 @@ def step(d, u, accel, target, spin_rows, felt, co):
 
     Returns
     -------
-    d, u, accel : ndarray, shape (3, M)
+    d, u, change : ndarray, shape (3, M)
     """
     dot = _ONES33.__matmul__
     # Felt acceleration at each link's head: the chain pivot's, minus what the parent ends add.
-    parent = accel - dot(u * u) * d
+    parent = co.length_per_h * change - (co.length * dot(u * u)) * d
     if co.any_drag:
-        parent = parent + co.drag * u
-    parent = co.length * parent
+        parent = parent + co.length_drag * u
     f = (felt + parent) - parent.reshape(co.shape).cumsum(2).reshape(parent.shape)
     fd = dot(f * d)
     c = dot(target * d)
@@ -265,7 +264,7 @@ def step(d, u, accel, target, spin_rows, felt, co):
     if spin_rows is not None:  # damper reference: turning with the animation
         rel = u - (spin_rows[0] * d[_I2] - spin_rows[1] * d[_I1])
     u_new = u + hden * (load - (co.damp + co.half_h * stiff) * rel)
-    accel = (u_new - u) * co.inv_h
+    change = u_new - u
     # Turn along the great circle of the mean rate (Cayley form of the rotation: the angle is
     # 2 atan(h |mean| / 2), consistent with the trapezoid), carrying the new rate along.
     mean = u + u_new  # twice the mean rate
@@ -273,7 +272,7 @@ def step(d, u, accel, target, spin_rows, felt, co):
     inv = 1.0 / (1.0 + q)
     d_new = (d * (1.0 - q) + co.half_h * mean) * inv
     u_new = u_new - (dot(u_new * mean) * inv) * (co.q2_scale * mean + co.half_h * d)
-    return d_new, u_new, accel
+    return d_new, u_new, change
 
 
 def limit_bend(d, u, target, cos_lim, sin_lim):

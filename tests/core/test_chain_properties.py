@@ -8,7 +8,7 @@ the model conserves energy -- no energy gain once the body holds still (damping 
 import math
 
 import numpy as np
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from overlap_assist.core.chain_solver import simulate_chains
@@ -83,6 +83,9 @@ def single_link_energy(state, target, length, s):
 
 @PROPS
 @given(ui_settings, FPS, st.integers(0, 2**31 - 1))
+@example(ChainSettings(frequency_hz=2.0, damping_ratio=0.0, air_drag=0.0), 24, 1)  # undamped edge
+@example(ChainSettings(frequency_hz=0.0, damping_ratio=0.0, gravity_scale=3.0, air_drag=0.0), 12, 2)
+@example(ChainSettings(frequency_hz=10.0, damping_ratio=0.01, gravity_scale=0.0, air_drag=0.0), 30, 3)
 def test_single_link_loses_energy_once_the_body_holds_still(s, fps, seed):
     # Damped (or undamped) motion about a fixed pose and pivot: energy cannot grow (the bend
     # limit and drag only remove energy). Tolerance: 1 % of the energy plus 1e-9 J/kg for the
