@@ -8,6 +8,7 @@ from ..core.body_analysis import analyse_body, analysis_to_dict
 from ..core.constants import CAUTION  # noqa: F401 - re-exported for the panel and the CLI
 from ..core.errors import OverlapAssistError
 from . import anim_data
+from .selection import armature_poll
 from .sample_body import body_samples
 
 LOAD_PROPERTY = "overlap_load_g"
@@ -82,11 +83,7 @@ class OVERLAP_ASSIST_OT_analyze_motion(bpy.types.Operator):
 
     @classmethod
     def poll(cls, context):
-        obj = context.active_object
-        if obj is None or obj.type != 'ARMATURE':
-            cls.poll_message_set("Select the character's armature")
-            return False
-        return True
+        return armature_poll(cls, context)
 
     def execute(self, context):
         obj, scene = context.active_object, context.scene

@@ -3,6 +3,7 @@ import bpy
 
 from ..core.errors import OverlapAssistError
 from . import bake_layer
+from .selection import armature_poll, bone_selected
 
 INTO_ACTION_WARNING = ("This replaces the rotation keys of the baked bones in your action over the baked "
                        "frames. Undo (Ctrl+Z) brings them back")
@@ -28,10 +29,9 @@ class OVERLAP_ASSIST_OT_remove_bake(bpy.types.Operator):
 
     @classmethod
     def poll(cls, context):
-        obj = context.active_object
-        if obj is None or obj.type != 'ARMATURE':
-            cls.poll_message_set("Select the character's armature")
+        if not armature_poll(cls, context):
             return False
+        obj = context.active_object
         if not bake_layer.has_bake(obj):
             cls.poll_message_set(f"{obj.name} has no {bake_layer.BAKE_TRACK_NAME} layer to remove")
             return False
@@ -92,10 +92,9 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
 
     @classmethod
     def poll(cls, context):
-        obj = context.active_object
-        if obj is None or obj.type != 'ARMATURE':
-            cls.poll_message_set("Select the character's armature")
+        if not armature_poll(cls, context):
             return False
+        obj = context.active_object
         if not len(obj.overlap_assist.chains):
             cls.poll_message_set("Add chains first (Chains panel)")
             return False
@@ -113,7 +112,7 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
         try:
             names = None
             if s.bake_scope == "SELECTED":
-                names = {c.name for c in s.chains if any(_bone_selected(obj, b) for b in c.bone_names())}
+                names = {c.name for c in s.chains if any(bone_selected(obj, b) for b in c.bone_names())}
                 if not names:
                     raise OverlapAssistError("no chain has a selected bone: select chain bones or bake all chains")
             chains = chain_sim.active_chains(obj, names)
@@ -130,13 +129,6 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
         s.last_bake = f"{len(chains)} chains: {stats.summary()}"
         self.report({'INFO'}, f"{len(chains)} chains, " + stats.summary())
         return {'FINISHED'}
-
-
-def _bone_selected(obj, name):
-    pb = obj.pose.bones.get(name)
-    if pb is None:
-        return False
-    return pb.select if hasattr(pb, "select") else obj.data.bones[name].select
 
 
 classes = (OVERLAP_ASSIST_OT_remove_bake, OVERLAP_ASSIST_OT_bake_chains)

@@ -8,6 +8,7 @@ from bpy.props import EnumProperty, IntProperty, StringProperty
 from ..core import presets
 from ..core.errors import OverlapAssistError
 from . import chain_sim, preview
+from .selection import armature_poll, bone_selected
 
 
 def split_chains(selected, parent_of, children_of):
@@ -71,16 +72,8 @@ def load_preset(key):
     return presets.shipped_presets()[key]
 
 
-def _armature_poll(cls, context):
-    obj = context.active_object
-    if obj is None or obj.type != 'ARMATURE':
-        cls.poll_message_set("Select the character's armature")
-        return False
-    return True
-
-
 def _chain_poll(cls, context):
-    if not _armature_poll(cls, context):
+    if not armature_poll(cls, context):
         return False
     if _active_chain(context) is None:
         cls.poll_message_set("No chain selected in the list")
@@ -105,11 +98,11 @@ class OVERLAP_ASSIST_OT_add_chains(bpy.types.Operator):
 
     @classmethod
     def poll(cls, context):
-        return _armature_poll(cls, context)
+        return armature_poll(cls, context)
 
     def execute(self, context):
         obj = context.active_object
-        selected = [pb.name for pb in obj.pose.bones if _is_selected(obj, pb)]
+        selected = [pb.name for pb in obj.pose.bones if bone_selected(obj, pb.name)]
         if not selected:
             self.report({'ERROR'}, "Select the chain's bones in pose mode first (root to tip)")
             return {'CANCELLED'}
@@ -141,11 +134,6 @@ class OVERLAP_ASSIST_OT_add_chains(bpy.types.Operator):
         self.report({'INFO'}, f"Added {added} chain{'s' if added != 1 else ''} "
                               f"({sum(len(g) for g in groups)} bones)")
         return {'FINISHED'}
-
-
-def _is_selected(obj, pb):
-    # 5.x: PoseBone.select; 4.5: Bone.select.
-    return pb.select if hasattr(pb, "select") else obj.data.bones[pb.name].select
 
 
 class OVERLAP_ASSIST_OT_remove_chain(bpy.types.Operator):
@@ -226,7 +214,7 @@ class OVERLAP_ASSIST_OT_add_collider(bpy.types.Operator):
 
     @classmethod
     def poll(cls, context):
-        if not _armature_poll(cls, context):
+        if not armature_poll(cls, context):
             return False
         if context.active_pose_bone is None:
             cls.poll_message_set("Make a body bone active in pose mode")
@@ -252,7 +240,7 @@ class OVERLAP_ASSIST_OT_remove_collider(bpy.types.Operator):
 
     @classmethod
     def poll(cls, context):
-        if not _armature_poll(cls, context):
+        if not armature_poll(cls, context):
             return False
         return len(context.active_object.overlap_assist.colliders) > 0
 
@@ -271,7 +259,7 @@ class OVERLAP_ASSIST_OT_toggle_preview(bpy.types.Operator):
 
     @classmethod
     def poll(cls, context):
-        return _armature_poll(cls, context)
+        return armature_poll(cls, context)
 
     def execute(self, context):
         obj, scene = context.active_object, context.scene
@@ -304,7 +292,7 @@ class OVERLAP_ASSIST_OT_frame_flight(bpy.types.Operator):
 
     @classmethod
     def poll(cls, context):
-        if not _armature_poll(cls, context):
+        if not armature_poll(cls, context):
             return False
         if not context.active_object.overlap_assist.body.last_summary:
             cls.poll_message_set("Run Analyze Body Motion first")

@@ -2,6 +2,7 @@
 import bpy
 import numpy as np
 import pytest
+from blender_helpers import op, select_bones
 
 from overlap_assist.blender import anim_data, bake_layer
 from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
@@ -15,21 +16,12 @@ TAIL = (
 NAMES = [b[0] for b in TAIL]
 
 
-def op(obj, name, **kw):
-    with bpy.context.temp_override(active_object=obj, object=obj):
-        return getattr(bpy.ops.overlap_assist, name)(**kw)
-
-
 @pytest.fixture
 def rig():
     bpy.context.scene.gravity = (0, 0, -9.80665)
     obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
     key_jump(obj, JumpSpec(forward_mps=1.0))
-    for pb in obj.pose.bones:
-        if hasattr(pb, "select"):
-            pb.select = pb.name in NAMES
-        else:
-            obj.data.bones[pb.name].select = pb.name in NAMES
+    select_bones(obj, NAMES)
     op(obj, "add_chains", preset="heavy_tail")
     return obj
 

@@ -3,24 +3,15 @@ never runs embedded scripts."""
 import json
 import os
 import pathlib
-import subprocess
-import sys
-import textwrap
-
 import bpy
 import pytest
+from blender_helpers import make_malicious_blend, run_cli
 
 from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
 from overlap_assist.core.jump_curves import JumpSpec
 
-ROOT = pathlib.Path(__file__).resolve().parents[2]
 TAIL = (("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
         ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)))
-
-
-def run_cli(*args, timeout=900):
-    return subprocess.run([sys.executable, "-m", "overlap_assist", *args], cwd=ROOT, capture_output=True,
-                          text=True, timeout=timeout)
 
 
 def make_clip(path, with_chain):
@@ -68,24 +59,7 @@ def test_batch_over_three_files_with_one_corrupt(tmp_path):
 def test_batch_never_runs_embedded_scripts(tmp_path):
     marker = tmp_path / "pwned.txt"
     blend = tmp_path / "evil.blend"
-    make = textwrap.dedent(f"""
-        import bpy, sys
-        sys.path.insert(0, {str(ROOT)!r})
-        from overlap_assist.blender.demo_scene import build_armature, key_jump
-        obj = build_armature("Hero")
-        key_jump(obj)
-        txt = bpy.data.texts.new("boot.py")
-        txt.write("open({str(marker)!r}, 'w').write('text block ran')\\n")
-        txt.use_module = True
-        obj["x"] = 0.0
-        fc = obj.driver_add('["x"]')
-        fc.driver.type = 'SCRIPTED'
-        fc.driver.expression = "__import__('builtins').open({str(marker)!r}, 'w').write('driver ran') or 0"
-        bpy.ops.wm.save_as_mainfile(filepath={str(blend)!r})
-        bpy.ops.wm.read_factory_settings(use_empty=True)
-    """)
-    subprocess.run([sys.executable, "-c", make], check=True, capture_output=True, timeout=300)
-    marker.unlink(missing_ok=True)
+    make_malicious_blend(blend, marker)
     proc = run_cli("batch", str(blend), "--out", str(tmp_path / "out"))
     assert proc.returncode == 0, proc.stdout + proc.stderr[-2000:]
     for args in (("simulate", str(blend), "--chain", "hips"),

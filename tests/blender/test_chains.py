@@ -4,6 +4,7 @@ import json
 import bpy
 import numpy as np
 import pytest
+from blender_helpers import op, select_bones
 
 from overlap_assist.blender import anim_data, preview
 from overlap_assist.blender.chains import split_chains
@@ -16,20 +17,6 @@ TAIL = (
     ("tail.003", "tail.002", (0, 0.30, 0.78), (0, 0.36, 0.64)),
     ("tuft.001", "tail.002", (0.02, 0.30, 0.78), (0.05, 0.40, 0.70)),
 )
-
-
-def select(obj, names):
-    for pb in obj.pose.bones:
-        flag = pb.name in names
-        if hasattr(pb, "select"):
-            pb.select = flag
-        else:
-            obj.data.bones[pb.name].select = flag
-
-
-def op(obj, name, **kw):
-    with bpy.context.temp_override(active_object=obj, object=obj):
-        return getattr(bpy.ops.overlap_assist, name)(**kw)
 
 
 @pytest.fixture
@@ -50,7 +37,7 @@ def test_split_chains_follows_hierarchy_and_branches():
 
 
 def test_add_chains_from_selection_with_a_branch(rig):
-    select(rig, {b[0] for b in TAIL})
+    select_bones(rig, {b[0] for b in TAIL})
     assert op(rig, "add_chains", preset="light_tail") == {'FINISHED'}
     chains = rig.overlap_assist.chains
     assert [c.bone_names() for c in chains] == [["tail.001", "tail.002"], ["tail.003"], ["tuft.001"]]
@@ -69,7 +56,7 @@ def _key_count(obj):
 
 
 def test_preview_moves_bones_without_keys_and_restores_the_animated_pose(rig):
-    select(rig, {"tail.001", "tail.002", "tail.003"})
+    select_bones(rig, {"tail.001", "tail.002", "tail.003"})
     op(rig, "add_chains", preset="ponytail")
     scene = bpy.context.scene
     names = ["tail.001", "tail.002", "tail.003"]
@@ -96,7 +83,7 @@ def test_preview_moves_bones_without_keys_and_restores_the_animated_pose(rig):
 
 
 def test_preview_cache_follows_setting_changes(rig):
-    select(rig, {"tail.001", "tail.002", "tail.003"})
+    select_bones(rig, {"tail.001", "tail.002", "tail.003"})
     op(rig, "add_chains", preset="ponytail")
     scene = bpy.context.scene
     op(rig, "toggle_preview")
@@ -114,7 +101,7 @@ def test_preview_cache_follows_setting_changes(rig):
 
 
 def test_chains_survive_save_and_reload(rig, tmp_path):
-    select(rig, {"tail.001", "tail.002", "tail.003"})
+    select_bones(rig, {"tail.001", "tail.002", "tail.003"})
     op(rig, "add_chains", preset="scarf_end")
     c = rig.overlap_assist.chains[0]
     c.name, c.mute, c.bounce = "swishy", True, 40.0
@@ -131,7 +118,7 @@ def test_chains_survive_save_and_reload(rig, tmp_path):
 
 def test_deleted_bone_gives_a_clear_problem_line(rig):
     from overlap_assist.blender.chain_sim import chain_problem
-    select(rig, {"tail.001", "tail.002", "tail.003"})
+    select_bones(rig, {"tail.001", "tail.002", "tail.003"})
     op(rig, "add_chains")
     bpy.context.view_layer.objects.active = rig
     bpy.ops.object.mode_set(mode='EDIT')

@@ -2,12 +2,10 @@
 import json
 import os
 import pathlib
-import subprocess
-import sys
-import textwrap
-
+import blender_helpers
 import bpy
 import pytest
+from blender_helpers import make_malicious_blend
 
 from overlap_assist.blender.demo_scene import build_armature, key_jump
 from overlap_assist.core.jump_curves import JumpSpec, jump_events
@@ -16,8 +14,7 @@ ROOT = pathlib.Path(__file__).resolve().parents[2]
 
 
 def run_cli(*args, timeout=300):
-    proc = subprocess.run([sys.executable, "-m", "overlap_assist", *args], cwd=ROOT, capture_output=True,
-                          text=True, timeout=timeout)
+    proc = blender_helpers.run_cli(*args, timeout=timeout)
     return proc.returncode, proc.stdout, proc.stderr
 
 
@@ -106,24 +103,7 @@ def test_embedded_scripts_never_run(tmp_path):
     """A file with a registered text block and a Python-expression driver that would write a file."""
     marker = tmp_path / "pwned.txt"
     blend = tmp_path / "evil.blend"
-    make = textwrap.dedent(f"""
-        import bpy, sys
-        sys.path.insert(0, {str(ROOT)!r})
-        from overlap_assist.blender.demo_scene import build_armature, key_jump
-        obj = build_armature("Hero")
-        key_jump(obj)
-        txt = bpy.data.texts.new("boot.py")
-        txt.write("open({str(marker)!r}, 'w').write('text block ran')\\n")
-        txt.use_module = True
-        obj["x"] = 0.0
-        fc = obj.driver_add('["x"]')
-        fc.driver.type = 'SCRIPTED'
-        fc.driver.expression = "__import__('builtins').open({str(marker)!r}, 'w').write('driver ran') or 0"
-        bpy.ops.wm.save_as_mainfile(filepath={str(blend)!r})
-        bpy.ops.wm.read_factory_settings(use_empty=True)
-    """)
-    subprocess.run([sys.executable, "-c", make], check=True, capture_output=True, timeout=300)
-    marker.unlink(missing_ok=True)  # in case the authoring process evaluated it; the CLI must not
+    make_malicious_blend(blend, marker)
     rc, out, err = run_cli("analyze", str(blend), "--json")
     assert rc == 0, err
     assert not marker.exists(), marker.read_text()
