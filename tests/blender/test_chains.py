@@ -139,3 +139,15 @@ def test_frame_flight_sets_the_preview_range(rig):
     assert scene.use_preview_range
     assert scene.frame_preview_start == int(fl["takeoff_frame"]) - 3
     assert scene.frame_preview_end >= fl["touchdown_frame"] + 3
+
+
+def test_preview_handler_is_removed_when_a_file_is_loaded(rig, tmp_path):
+    select_bones(rig, {"tail.001", "tail.002", "tail.003"})
+    op(rig, "add_chains", preset="ponytail")
+    path = str(tmp_path / "p.blend")
+    bpy.ops.wm.save_as_mainfile(filepath=path, copy=True)
+    op(rig, "toggle_preview")
+    assert preview._on_frame_change in bpy.app.handlers.frame_change_post
+    bpy.ops.wm.open_mainfile(filepath=path, load_ui=False)
+    assert preview._on_frame_change not in bpy.app.handlers.frame_change_post
+    assert not preview.PREVIEW.caches
