@@ -208,30 +208,20 @@ def write_atomic(path, text):
 
 
 def cmd_demo(args, out):
-    bpy = import_bpy()
-    from .blender.analyze import CAUTION, run_analysis, summary_line, write_load_curve, write_markers
-    from .blender.demo_scene import DEMO_CLIPS, build_demo_scene
-    from .core.body_analysis import analysis_to_dict
-    os.makedirs(args.out, exist_ok=True)
-    bpy.ops.wm.read_factory_settings(use_empty=True)
-    with addon_registered(bpy):
-        report = {}
-        for clip in DEMO_CLIPS:
-            scene, obj = build_demo_scene(clip)
-            result, warnings = run_analysis(obj, scene)
-            write_load_curve(obj, result)
-            write_markers(obj, scene, result)
-            d = analysis_to_dict(result)
-            d["warnings"] = warnings
-            report[clip.name] = d
-            out.write(f"{clip.name}: {summary_line(result)}\n")
-        blend = os.path.abspath(os.path.join(args.out, "overlap_demo.blend"))
-        tmp = blend + ".tmp.blend"
-        bpy.ops.wm.save_as_mainfile(filepath=tmp, copy=True)
-        os.replace(tmp, blend)
-        summary = os.path.join(args.out, "overlap_demo.json")
-        write_atomic(summary, json.dumps(report, indent=1))
-        out.write(f"wrote {blend}\nwrote {summary}\n{CAUTION}\n")
+    import_bpy()
+    from .demo import CAUTION, run_demo
+    result = run_demo(args.out, progress=lambda line: print(line, file=sys.stderr))
+    for line in result["summary_lines"]:
+        out.write(line + "\n")
+    for name, flags in result["flags"].items():
+        bake = result["bake"][name]
+        out.write(f"{name}: arm swing {'after' if flags.get('late_arm_swing') else 'before'} takeoff, "
+                  f"flight easing {'yes' if flags.get('horizontal_easing') else 'no'}; baked {bake['keys_written']} "
+                  f"keys ({bake['reduction_percent']:.0f} % fewer than per frame): "
+                  + ", ".join(f"{c['chain']} {c['keys_after']}" for c in result["chains"][name]) + "\n")
+    for key in ("blend", "json", "report", "contact_sheet"):
+        out.write(f"wrote {result[key]}\n")
+    out.write(f"took {result['timings_s']['total_s']:.1f} s\n{CAUTION}\n")
     return 0
 
 

@@ -1,0 +1,252 @@
+"""The demo: the whole job on our invented character, from an empty file to the outputs.
+
+Stages per clip (``run_demo``):
+  1. build    scene, rig "Wren" with meshes, four chains from presets, keyed jump, side camera
+  2. analyse  centre-of-mass body source → load curve on the rig, takeoff/apex/touchdown markers
+  3. bake     sample → solve → key reduction (0.5°) onto the "Overlap Bake" NLA layer
+  4. render   Workbench frames across the jump (baked chains visible) for the contact sheet
+Then: one .blend with both clips as scenes, a JSON summary, the HTML report, the contact sheet.
+
+Key counts per chain: all chains of a clip are baked in one call (a re-bake replaces the whole
+layer), so ``BakeStats`` covers the clip; per chain, ``keys_after`` is counted from the bake
+action's F-curves of that chain's bones and ``keys_before`` is those curves × baked frames (the
+same rule ``BakeStats.keys_before`` uses). Their sums equal the clip's ``BakeStats``.
+"""
+import contextlib
+import json
+import math
+import os
+import time
+
+import numpy as np
+
+from .core.constants import HORIZONTAL_EASE_MPS2
+
+CAUTION = "Figures are for animation plausibility only, not biomechanical or medical assessment"
+TOLERANCE_DEG = 0.5
+FULL = {"tile": (320, 400), "scale": 2}
+SMALL = {"tile": (96, 120), "scale": 1}
+SHEET_EVENTS = ("crouch", "push-off", "takeoff", "apex", "touchdown", "whip", "settle")
+
+
+@contextlib.contextmanager
+def _addon_registered():
+    import bpy
+    if hasattr(bpy.types.Object, "overlap_assist"):
+        yield
+        return
+    from . import register, unregister
+    register()
+    try:
+        yield
+    finally:
+        unregister()
+
+
+def flags_of(result):
+    """What the clip gets wrong, in the analysis' own terms (first flight)."""
+    if not result.flights:
+        return {"flight": False}
+    fl = result.flights[0]
+    return {"flight": True, "verdict": fl.verdict, "gravity_ratio": fl.gravity_ratio,
+            "floaty": fl.verdict.startswith("floaty"), "late_arm_swing": bool(fl.late_arm_swing),
+            "arm_swing_offset_frames": fl.arm_swing_offset_frames,
+            "horizontal_accel_mps2": fl.horizontal_accel_mps2,
+            "horizontal_easing": bool(fl.horizontal_accel_mps2 < -HORIZONTAL_EASE_MPS2),
+            "retime_frames": fl.retime_frames}
+
+
+def sheet_frames(result, tip_swing, chain_frames, frame_end):
+    """Frames for the contact sheet, from the analysis and the simulated tip swing.
+
+    crouch: lowest body point before takeoff; push-off: halfway from there to takeoff; takeoff,
+    apex, touchdown: the analysis' events; whip: largest tip swing within 12 frames after
+    touchdown; settle: 24 frames after touchdown (or the last frame).
+    """
+    fl = result.flights[0]
+    whole = np.isclose(result.frames, np.round(result.frames))
+    f, z = result.frames[whole], result.body_pos_m[whole, 2]
+    before = f < fl.takeoff_frame
+    crouch = int(f[before][np.argmin(z[before])])
+    takeoff = int(round(fl.takeoff_frame))
+    td = int(round(fl.touchdown_frame))
+    sel = (chain_frames > td) & (chain_frames <= td + 12)
+    whip = int(chain_frames[sel][np.argmax(tip_swing[sel])]) if sel.any() else td + 3
+    return {"crouch": crouch, "push-off": int(round(0.5 * (crouch + takeoff))), "takeoff": takeoff,
+            "apex": int(round(fl.apex_frame)), "touchdown": td, "whip": whip, "settle": min(td + 24, frame_end)}
+
+
+def per_chain_keys(obj, stats, chain_bones):
+    """Split one bake's key counts over its chains (see the module docstring)."""
+    import bpy
+    from .blender import anim_data
+    act = bpy.data.actions[stats.action_name]
+    by_bone = {}
+    for fc in anim_data.all_action_fcurves(act):
+        if fc.data_path.startswith('pose.bones["'):
+            bone = fc.data_path.split('"')[1]
+            by_bone.setdefault(bone, []).append(len(fc.keyframe_points))
+    out = []
+    for bones in chain_bones:
+        counts = [c for b in bones for c in by_bone.get(b, [])]
+        out.append((len(counts) * stats.n_frames, sum(counts)))
+    return out
+
+
+def _clip(jump, sizes, progress):
+    """Build, analyse, bake and render one clip. Returns (record for JSON, report clip, tiles)."""
+    from .blender import demo_character
+    from .blender.analyze import run_analysis, summary_line, write_load_curve, write_markers
+    from .blender.bake_ops import bake_chains
+    from .blender.chain_sim import active_chains
+    from .blender.contact_sheet import render_frames
+    from .core.body_analysis import analysis_to_dict
+    from .core.chain_summary import swing_angles
+    timings = {}
+    t0 = time.perf_counter()
+    scene, rig, _perf = demo_character.build_clip(jump, render_size=sizes["tile"])
+    timings["build_s"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    result, warnings = run_analysis(rig, scene)
+    write_load_curve(rig, result)
+    write_markers(rig, scene, result)
+    timings["analyse_s"] = time.perf_counter() - t0
+    line = f"{jump.name}: {summary_line(result)}"
+    progress(line)
+
+    t0 = time.perf_counter()
+    chains = active_chains(rig)
+    stats, sampled, motion = bake_chains(rig, scene, chains, scene.frame_start, scene.frame_end, TOLERANCE_DEG)
+    rig.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
+    timings["simulate_and_bake_s"] = time.perf_counter() - t0
+    progress(f"{jump.name}: {len(chains)} chains, {stats.summary()}")
+
+    swings = [np.degrees(swing_angles(inp.target_dirs, dirs)[:, -1]) for inp, dirs in zip(sampled.inputs, motion.dirs)]
+    keys = per_chain_keys(rig, stats, sampled.bone_names)
+    chain_rows, report_chains = [], []
+    for c, bones, sw, (before, after) in zip(chains, sampled.bone_names, swings, keys):
+        chain_rows.append({"chain": c.name, "preset": c.preset, "bones": bones, "keys_before": before,
+                           "keys_after": after, "max_tip_swing_deg": round(float(sw.max()), 2)})
+        report_chains.append({"chain": c.name, "frames": sampled.frames.tolist(),
+                              "tip_swing_deg": [round(float(x), 3) for x in sw],
+                              "keys_before": before, "keys_after": after})
+
+    t0 = time.perf_counter()
+    events = sheet_frames(result, np.max(swings, axis=0), sampled.frames, scene.frame_end)
+    tiles = render_frames(scene, list(events.values()))
+    timings["render_s"] = time.perf_counter() - t0
+
+    analysis = analysis_to_dict(result)
+    analysis["warnings"] = warnings
+    whole = np.isclose(result.frames, np.round(result.frames))
+    record = {"scene": scene.name, "armature": rig.name, "title": jump.title, "summary": line,
+              "flags": flags_of(result), "sheet_frames": events, "chains": chain_rows,
+              "bake": {"layer": "Overlap Bake", "action": stats.action_name, "frames": stats.n_frames,
+                       "keys_before": stats.keys_before, "keys_written": stats.keys_written,
+                       "reduction_percent": round(stats.reduction_percent, 2),
+                       "max_error_deg": round(stats.max_error_deg, 4), "tolerance_deg": TOLERANCE_DEG,
+                       "key_split": "one bake per clip; per-chain counts from the bake action's F-curves"},
+              "analysis": analysis, "timings_s": {k: round(v, 3) for k, v in timings.items()}}
+    report_clip = {"name": f"{jump.title} ({jump.name})", "analysis": analysis,
+                   "body_height": {"frames": result.frames[whole].tolist(),
+                                   "height_m": result.body_pos_m[whole, 2].tolist()},
+                   "chains": report_chains,
+                   "images": {f"contact sheet, {jump.title.lower()}": f"strip_{jump.name}.png"}}
+    return record, report_clip, (events, tiles)
+
+
+def _row_title(jump, flags):
+    if not flags.get("flight"):
+        return f"{jump.title}: no flight found"
+    parts = [f"{jump.title}: {flags['verdict']}"]
+    off = flags["arm_swing_offset_frames"]
+    if off is not None:
+        parts.append(f"arms {abs(off):.1f} f {'after' if off > 0 else 'before'} takeoff")
+    parts.append(f"flight accel {flags['horizontal_accel_mps2']:+.1f} m/s2")
+    return ", ".join(parts)
+
+
+def run_demo(out_dir, small=False, progress=print):
+    """Build the two demo clips, run the whole pipeline, write the outputs into ``out_dir``.
+
+    Parameters
+    ----------
+    out_dir : folder (created); existing outputs of the same names are replaced
+    small : tiny renders for tests (the clips and the analysis are the same)
+    progress : callable(str) for one-line progress messages
+
+    Returns
+    -------
+    dict with the output paths ("blend", "json", "report", "contact_sheet", "strips"), the
+    summary lines, per-clip flags, the contact sheet size and timings.
+    """
+    import bpy
+    from .blender import demo_character
+    from .blender.contact_sheet import SheetLayout, compose_sheet, write_png
+    from .report.html_report import write_report
+    sizes = SMALL if small else FULL
+    out_dir = os.path.abspath(out_dir)
+    os.makedirs(out_dir, exist_ok=True)
+    t_start = time.perf_counter()
+    bpy.ops.wm.read_factory_settings(use_empty=True)
+    placeholder = bpy.context.window.scene
+    records, report_clips, rows, lines, strips = {}, [], [], [], {}
+    with _addon_registered():
+        for jump in demo_character.DEMO_JUMPS:
+            record, report_clip, (events, tiles) = _clip(jump, sizes, progress)
+            records[jump.name] = record
+            report_clips.append(report_clip)
+            lines.append(record["summary"])
+            row = (_row_title(jump, record["flags"]),
+                   [(f"{name} {frame}", tile) for (name, frame), tile in zip(events.items(), tiles)])
+            rows.append(row)
+            strip = os.path.join(out_dir, f"strip_{jump.name}.png")
+            write_png(strip, compose_sheet([row], *sizes["tile"], sizes["scale"]))
+            strips[jump.name] = strip
+
+        t0 = time.perf_counter()
+        sheet_path = os.path.join(out_dir, "contact_sheet.png")
+        sheet = compose_sheet(rows, *sizes["tile"], sizes["scale"],
+                              footer="Wren, our demo character. " + CAUTION.split(",")[0])
+        write_png(sheet_path, sheet)
+        layout = SheetLayout(len(rows), len(SHEET_EVENTS), *sizes["tile"], sizes["scale"])
+
+        bpy.context.window.scene = bpy.data.scenes[demo_character.DEMO_JUMPS[0].name]
+        if placeholder.name not in records:
+            bpy.data.scenes.remove(placeholder)
+        blend = os.path.join(out_dir, "overlap_demo.blend")
+        tmp = os.path.join(out_dir, f".overlap_demo.tmp{os.getpid()}.blend")
+        try:
+            bpy.ops.wm.save_as_mainfile(filepath=tmp, copy=True)
+            os.replace(tmp, blend)
+        finally:
+            if os.path.exists(tmp):
+                os.remove(tmp)
+        report = os.path.join(out_dir, "overlap_report.html")
+        write_report(report, report_clips, title="Overlap Assist demo: Wren jumps a gap")
+        timings = {"outputs_s": round(time.perf_counter() - t0, 3),
+                   "total_s": round(time.perf_counter() - t_start, 3)}
+        summary = {"caution": CAUTION, "scenario": "invented: character, jumps and numbers are ours",
+                   "tolerance_deg": TOLERANCE_DEG, "clips": records, "timings_s": timings,
+                   "outputs": {"blend": blend, "report": report, "contact_sheet": sheet_path, "strips": strips}}
+        json_path = os.path.join(out_dir, "overlap_demo.json")
+        tmp = f"{json_path}.tmp{os.getpid()}"
+        with open(tmp, "w", encoding="utf-8") as f:
+            json.dump(summary, f, indent=1, default=_json_default)
+        os.replace(tmp, json_path)
+    return {"blend": blend, "json": json_path, "report": report, "contact_sheet": sheet_path, "strips": strips,
+            "sheet_size": layout.size, "tile_size": sizes["tile"], "summary_lines": lines,
+            "flags": {k: r["flags"] for k, r in records.items()},
+            "chains": {k: r["chains"] for k, r in records.items()},
+            "bake": {k: r["bake"] for k, r in records.items()},
+            "sheet_frames": {k: r["sheet_frames"] for k, r in records.items()}, "timings_s": timings}
+
+
+def _json_default(x):
+    if isinstance(x, np.generic):
+        v = x.item()
+        return None if isinstance(v, float) and not math.isfinite(v) else v
+    if isinstance(x, np.ndarray):
+        return x.tolist()
+    raise TypeError(f"not JSON serialisable: {type(x).__name__}")
