@@ -162,18 +162,10 @@ def pick_armature(bpy, name):
                    + ", ".join(sorted(o.name for o in arms)))
 
 
-@contextlib.contextmanager
 def addon_registered(bpy):
     """Register the add-on for the command if it is not already (and clean up after)."""
-    if hasattr(bpy.types.Object, "overlap_assist"):
-        yield
-        return
-    from . import register, unregister
-    register()
-    try:
-        yield
-    finally:
-        unregister()
+    from .blender import registered
+    return registered()
 
 
 def cmd_analyze(args, out):

@@ -12,7 +12,6 @@ layer), so ``BakeStats`` covers the clip; per chain, ``keys_after`` is counted f
 action's F-curves of that chain's bones and ``keys_before`` is those curves × baked frames (the
 same rule ``BakeStats.keys_before`` uses). Their sums equal the clip's ``BakeStats``.
 """
-import contextlib
 import json
 import math
 import os
@@ -20,27 +19,12 @@ import time
 
 import numpy as np
 
-from .core.constants import HORIZONTAL_EASE_MPS2
+from .core.constants import CAUTION, HORIZONTAL_EASE_MPS2
 
-CAUTION = "Figures are for animation plausibility only, not biomechanical or medical assessment"
 TOLERANCE_DEG = 0.5
 FULL = {"tile": (320, 400), "scale": 2}
 SMALL = {"tile": (96, 120), "scale": 1}
 SHEET_EVENTS = ("crouch", "push-off", "takeoff", "apex", "touchdown", "whip", "settle")
-
-
-@contextlib.contextmanager
-def _addon_registered():
-    import bpy
-    if hasattr(bpy.types.Object, "overlap_assist"):
-        yield
-        return
-    from . import register, unregister
-    register()
-    try:
-        yield
-    finally:
-        unregister()
 
 
 def flags_of(result):
@@ -192,7 +176,8 @@ def run_demo(out_dir, small=False, progress=print):
     bpy.ops.wm.read_factory_settings(use_empty=True)
     placeholder = bpy.context.window.scene
     records, report_clips, rows, lines, strips = {}, [], [], [], {}
-    with _addon_registered():
+    from .blender import registered
+    with registered():
         for jump in demo_character.DEMO_JUMPS:
             record, report_clip, (events, tiles) = _clip(jump, sizes, progress)
             records[jump.name] = record

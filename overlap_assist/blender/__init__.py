@@ -1,4 +1,6 @@
 """Blender layer: registration in one place, symmetric (everything added is removed in reverse)."""
+import contextlib
+
 import bpy
 
 from . import analyze, bake_ops, chains, panels, preview, properties
@@ -16,6 +18,19 @@ def register():
     if hasattr(bpy.utils, "register_cli_command"):
         from .. import cli
         _cli_handles.append(bpy.utils.register_cli_command("overlap_assist", cli.blender_command))
+
+
+@contextlib.contextmanager
+def registered():
+    """Register the add-on for a headless job unless it already is (and unregister after)."""
+    if hasattr(bpy.types.Object, "overlap_assist"):
+        yield
+        return
+    register()
+    try:
+        yield
+    finally:
+        unregister()
 
 
 def unregister():
