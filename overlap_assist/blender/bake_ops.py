@@ -1,4 +1,6 @@
 """Operators for the bake layer: remove it, and the confirmation "Write into the action" needs."""
+import time
+
 import bpy
 
 from ..core.errors import OverlapAssistError
@@ -64,20 +66,37 @@ def offsets_by_bone(sampled, offsets):
     return out
 
 
-def bake_chains(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False, progress=None):
-    """Sample, solve and bake ``chains``; returns (BakeStats, SampledRig, ChainMotion)."""
+def bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False):
+    """The bake as a generator: yields the fraction done, returns (BakeStats, SampledRig, ChainMotion).
+
+    Sampling the rig is the long part and comes first; closing the generator there (a cancelled
+    bake) leaves the scene as it was. Solving and writing then run to the end in one go.
+    """
     from . import chain_sim
-    sampled = chain_sim.sample_rig(obj, scene, chains, frame_start, frame_end,
-                                   progress=(lambda f: progress(0.4 * f)) if progress else None)
+    sampling = chain_sim.sample_rig_steps(obj, scene, chains, frame_start, frame_end)
+    try:
+        while True:
+            yield 0.8 * next(sampling)
+    except StopIteration as done:
+        sampled = done.value
     motion, offsets = chain_sim.solve(sampled, chain_sim.settings_for(obj, scene, chains))
-    if progress:
-        progress(0.5)
+    yield 0.85
     stats = bake_layer.bake_offsets(obj, sampled.frames.astype(int), offsets_by_bone(sampled, offsets),
                                     tolerance_deg=tolerance_deg, into_action=into_action,
-                                    influence=obj.overlap_assist.bake_influence,
-                                    progress=(lambda f: progress(0.5 + 0.5 * f)) if progress else None,
-                                    scene=scene)
+                                    influence=obj.overlap_assist.bake_influence, scene=scene)
     return stats, sampled, motion
+
+
+def bake_chains(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False, progress=None):
+    """Sample, solve and bake ``chains``; returns (BakeStats, SampledRig, ChainMotion)."""
+    steps = bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action)
+    try:
+        while True:
+            fraction = next(steps)
+            if progress is not None:
+                progress(fraction)
+    except StopIteration as done:
+        return done.value
 
 
 class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
@@ -100,25 +119,78 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
             return False
         return True
 
-    def invoke(self, context, event):
-        return confirm_into_action(self, context, event)
-
-    def execute(self, context):
+    def _job(self, context):
+        """(obj, scene, chains, start, end) to bake; raises OverlapAssistError with what to do."""
         from . import chain_sim
         obj, scene = context.active_object, context.scene
         s = obj.overlap_assist
+        names = None
+        if s.bake_scope == "SELECTED":
+            names = {c.name for c in s.chains if any(bone_selected(obj, b) for b in c.bone_names())}
+            if not names:
+                raise OverlapAssistError("no chain has a selected bone: select chain bones or bake all chains")
+        chains = chain_sim.active_chains(obj, names)
+        start, end = (s.bake_frame_start, s.bake_frame_end) if s.bake_use_range else \
+            (scene.frame_start, scene.frame_end)
+        return obj, scene, chains, start, end
+
+    def _finished(self, obj, n_chains, stats):
+        obj.overlap_assist.last_bake = f"{n_chains} chains: {stats.summary()}"
+        self.report({'INFO'}, f"{n_chains} chains, " + stats.summary())
+        return {'FINISHED'}
+
+    def invoke(self, context, event):
+        if self.into_action or bpy.app.background:
+            return confirm_into_action(self, context, event)
+        # In the UI a bake runs a step at a time from a timer: progress shows and Esc cancels.
+        try:
+            obj, scene, chains, start, end = self._job(context)
+        except OverlapAssistError as exc:
+            self.report({'ERROR'}, str(exc))
+            return {'CANCELLED'}
+        self._obj, self._n = obj, len(chains)
+        self._steps = bake_steps(obj, scene, chains, start, end, obj.overlap_assist.bake_tolerance_deg)
+        wm = context.window_manager
+        wm.progress_begin(0, 100)
+        self._timer = wm.event_timer_add(0.01, window=context.window)
+        wm.modal_handler_add(self)
+        return {'RUNNING_MODAL'}
+
+    def _stop(self, context):
+        wm = context.window_manager
+        wm.event_timer_remove(self._timer)
+        wm.progress_end()
+        context.workspace.status_text_set(None)
+
+    def modal(self, context, event):
+        if event.type in {'ESC', 'RIGHTMOUSE'}:
+            self._steps.close()  # sampling restores the frame and the layer; nothing was written
+            self._stop(context)
+            self.report({'WARNING'}, "Bake cancelled: nothing changed")
+            return {'CANCELLED'}
+        if event.type != 'TIMER':
+            return {'RUNNING_MODAL'}
+        deadline = time.perf_counter() + 0.1
+        try:
+            while time.perf_counter() < deadline:
+                fraction = next(self._steps)
+                context.window_manager.progress_update(int(100 * fraction))
+                context.workspace.status_text_set(f"Baking chains: {100 * fraction:.0f} % (Esc to cancel)")
+        except StopIteration as done:
+            self._stop(context)
+            return self._finished(self._obj, self._n, done.value[0])
+        except OverlapAssistError as exc:
+            self._stop(context)
+            self.report({'ERROR'}, str(exc))
+            return {'CANCELLED'}
+        return {'RUNNING_MODAL'}
+
+    def execute(self, context):
         wm = context.window_manager
         wm.progress_begin(0, 100)
         try:
-            names = None
-            if s.bake_scope == "SELECTED":
-                names = {c.name for c in s.chains if any(bone_selected(obj, b) for b in c.bone_names())}
-                if not names:
-                    raise OverlapAssistError("no chain has a selected bone: select chain bones or bake all chains")
-            chains = chain_sim.active_chains(obj, names)
-            start, end = (s.bake_frame_start, s.bake_frame_end) if s.bake_use_range else \
-                (scene.frame_start, scene.frame_end)
-            stats, _, _ = bake_chains(obj, scene, chains, start, end, s.bake_tolerance_deg,
+            obj, scene, chains, start, end = self._job(context)
+            stats, _, _ = bake_chains(obj, scene, chains, start, end, obj.overlap_assist.bake_tolerance_deg,
                                       into_action=self.into_action,
                                       progress=lambda f: wm.progress_update(int(100 * f)))
         except OverlapAssistError as exc:
@@ -126,9 +198,7 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
             return {'CANCELLED'}
         finally:
             wm.progress_end()
-        s.last_bake = f"{len(chains)} chains: {stats.summary()}"
-        self.report({'INFO'}, f"{len(chains)} chains, " + stats.summary())
-        return {'FINISHED'}
+        return self._finished(obj, len(chains), stats)
 
 
 classes = (OVERLAP_ASSIST_OT_remove_bake, OVERLAP_ASSIST_OT_bake_chains)

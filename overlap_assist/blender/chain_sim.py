@@ -79,6 +79,19 @@ def animated_pose_only(obj):
 
 def sample_rig(obj, scene, chains, frame_start, frame_end, progress=None) -> SampledRig:
     """Sample chain bones and collider bones at every whole frame (restores the current frame)."""
+    steps = sample_rig_steps(obj, scene, chains, frame_start, frame_end)
+    try:
+        while True:
+            fraction = next(steps)
+            if progress is not None:
+                progress(fraction)
+    except StopIteration as done:
+        return done.value
+
+
+def sample_rig_steps(obj, scene, chains, frame_start, frame_end, every=16):
+    """:func:`sample_rig` as a generator: yields the fraction done every ``every`` frames and
+    returns the SampledRig. Closing it early (a cancelled bake) restores the frame and the layer."""
     if frame_end <= frame_start:
         raise InputError(f"frame range {frame_start}-{frame_end} is empty: set an end frame after the start frame")
     settings = obj.overlap_assist
@@ -110,8 +123,8 @@ def sample_rig(obj, scene, chains, frame_start, frame_end, progress=None) -> Sam
                 mats[k] = np.array(obj.matrix_world, dtype=float) @ local
                 pbones.foreach_get("matrix_basis", buf)
                 basis[k] = buf.reshape(nb, 4, 4).transpose(0, 2, 1)[idx, :3, :3]
-                if progress is not None and k % 16 == 0:
-                    progress(k / frames.size)
+                if k % every == every - 1:
+                    yield (k + 1) / frames.size
         finally:
             scene.frame_set(saved[0], subframe=saved[1])
     heads = mats[:, :, :3, 3] * scale

@@ -75,3 +75,26 @@ def test_bake_with_a_deleted_chain_bone_is_refused_and_changes_nothing(rig):
     with pytest.raises(RuntimeError, match="tail.002 not found"):
         op(rig, "bake_chains")
     assert not bake_layer.has_bake(rig) and len(bpy.data.actions) == n_actions
+
+
+def test_a_bake_cancelled_while_sampling_changes_nothing(rig):
+    # The UI runs the bake step by step and Esc closes the step generator (no event loop in
+    # module mode, so the generator is driven directly here).
+    from overlap_assist.blender import chain_sim
+    from overlap_assist.blender.bake_ops import bake_steps
+    scene = bpy.context.scene
+    n_actions, keys = len(bpy.data.actions), _poses(rig, [30])
+    scene.frame_set(17)
+    steps = bake_steps(rig, scene, chain_sim.active_chains(rig), scene.frame_start, scene.frame_end, 0.5)
+    fractions = [next(steps), next(steps)]
+    assert 0 < fractions[0] < fractions[1] < 0.8
+    steps.close()
+    assert scene.frame_current == 17
+    assert not bake_layer.has_bake(rig) and len(bpy.data.actions) == n_actions
+    np.testing.assert_array_equal(_poses(rig, [30]), keys)
+    # Run to the end, the same generator gives the finished bake.
+    steps = bake_steps(rig, scene, chain_sim.active_chains(rig), scene.frame_start, scene.frame_end, 0.5)
+    with pytest.raises(StopIteration) as done:
+        while True:
+            next(steps)
+    assert done.value.value[0].keys_written > 0 and bake_layer.has_bake(rig)
