@@ -88,7 +88,9 @@ class PreviewOwner:
         from . import chain_sim
         cache = self.caches[obj.name]
         chains = chain_sim.active_chains(obj)
-        if cache.sample_dirty or cache.sampled is None or cache.sampled.chain_names != [c.name for c in chains]:
+        stale = (cache.sampled is None or cache.sampled.chain_names != [c.name for c in chains]
+                 or (cache.sampled.frames[0], cache.sampled.frames[-1]) != (scene.frame_start, scene.frame_end))
+        if cache.sample_dirty or stale:
             cache.sampled = chain_sim.sample_rig(obj, scene, chains, scene.frame_start, scene.frame_end)
             cache.sample_dirty, cache.solve_dirty = False, True
         if cache.solve_dirty:

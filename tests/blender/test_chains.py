@@ -151,3 +151,17 @@ def test_preview_handler_is_removed_when_a_file_is_loaded(rig, tmp_path):
     bpy.ops.wm.open_mainfile(filepath=path, load_ui=False)
     assert preview._on_frame_change not in bpy.app.handlers.frame_change_post
     assert not preview.PREVIEW.caches
+
+
+def test_preview_follows_a_new_scene_range(rig):
+    select_bones(rig, {"tail.001", "tail.002", "tail.003"})
+    op(rig, "add_chains", preset="ponytail")
+    scene = bpy.context.scene
+    op(rig, "toggle_preview")
+    try:
+        scene.frame_end += 12
+        scene.frame_set(scene.frame_end)
+        cache = preview.PREVIEW.caches[rig.name]
+        assert cache.sampled.frames[-1] == scene.frame_end
+    finally:
+        op(rig, "toggle_preview")
