@@ -88,29 +88,3 @@ def key_jump(obj, spec=JumpSpec(), first_frame=1, bone_name="hips", scene=None, 
     scene.frame_start, scene.frame_end = first_frame, last
     return ev
 
-
-class DemoClip:
-    """One demo shot: a scene with the character and a jump (our invented scenario)."""
-
-    def __init__(self, name, spec):
-        self.name, self.spec = name, spec
-
-
-DEMO_CLIPS = (
-    # A good jump across a gap: countermovement, ballistic flight at real gravity, landing.
-    DemoClip("good_jump", JumpSpec(forward_mps=1.6)),
-    # A flawed one: floaty hang (0.45 g) and easing forward speed in flight.
-    DemoClip("floaty_jump", JumpSpec(forward_mps=1.6, flight_gravity_mps2=0.45 * 9.80665,
-                                     flight_forward_accel_mps2=-1.5)),
-)
-
-
-def build_demo_scene(clip, fps=24):
-    """A new scene named after the clip, with the character keyed with the clip's jump."""
-    scene = bpy.data.scenes.new(clip.name)
-    bpy.context.window.scene = scene
-    scene.render.fps, scene.render.fps_base = fps, 1.0
-    scene.gravity = (0.0, 0.0, -9.80665)
-    obj = build_armature("Hero_" + clip.name)
-    key_jump(obj, clip.spec, scene=scene)
-    return scene, obj
