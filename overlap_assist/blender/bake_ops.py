@@ -89,14 +89,8 @@ def bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_a
 
 def bake_chains(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False, progress=None):
     """Sample, solve and bake ``chains``; returns (BakeStats, SampledRig, ChainMotion)."""
-    steps = bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action)
-    try:
-        while True:
-            fraction = next(steps)
-            if progress is not None:
-                progress(fraction)
-    except StopIteration as done:
-        return done.value
+    from .chain_sim import run_to_end
+    return run_to_end(bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action), progress)
 
 
 class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):

@@ -77,9 +77,8 @@ def animated_pose_only(obj):
                 track.mute = was_muted
 
 
-def sample_rig(obj, scene, chains, frame_start, frame_end, progress=None) -> SampledRig:
-    """Sample chain bones and collider bones at every whole frame (restores the current frame)."""
-    steps = sample_rig_steps(obj, scene, chains, frame_start, frame_end)
+def run_to_end(steps, progress=None):
+    """Drive a step generator (yields fractions done, returns a result) to its end."""
     try:
         while True:
             fraction = next(steps)
@@ -87,6 +86,11 @@ def sample_rig(obj, scene, chains, frame_start, frame_end, progress=None) -> Sam
                 progress(fraction)
     except StopIteration as done:
         return done.value
+
+
+def sample_rig(obj, scene, chains, frame_start, frame_end, progress=None) -> SampledRig:
+    """Sample chain bones and collider bones at every whole frame (restores the current frame)."""
+    return run_to_end(sample_rig_steps(obj, scene, chains, frame_start, frame_end), progress)
 
 
 def sample_rig_steps(obj, scene, chains, frame_start, frame_end, every=16):
