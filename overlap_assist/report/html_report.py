@@ -21,7 +21,8 @@ import os
 
 import numpy as np
 
-from ..core.constants import CAUTION, HORIZONTAL_EASE_MPS2
+from ..core.constants import CAUTION
+from .findings import as_float, clip_findings, fmt_count, fmt_fixed, verdict_text, verdict_word
 from .svg_plot import (PlotArea, axes, band, esc, hline, margin_label, marker, num, polyline, spread,
                        svg_close, svg_open, vline)
 
@@ -95,17 +96,9 @@ def write_report(path, clips, title: str = "Overlap Assist report") -> None:
 
 # ---------------------------------------------------------------- data access
 
-def _val(x) -> float:
-    """A float, or NaN for None / missing / non-numeric."""
-    try:
-        return float(x)
-    except (TypeError, ValueError):
-        return math.nan
-
-
 def _series(frames, values):
-    f = np.array([_val(v) for v in (frames or [])], dtype=float)
-    v = np.array([_val(v) for v in (values or [])], dtype=float)
+    f = np.array([as_float(v) for v in (frames or [])], dtype=float)
+    v = np.array([as_float(v) for v in (values or [])], dtype=float)
     n = min(f.size, v.size)
     return f[:n], v[:n]
 
@@ -137,9 +130,9 @@ def flight_parabola(flight: dict, frames, heights, fps: float):
     z(τ) = z_to + v0·τ − ½·g_implied·τ², τ = (frame − takeoff_frame)/fps, z_to interpolated in the
     body height at the takeoff frame. The apex frame is one of the samples. None if incomplete.
     """
-    to, td = _val(flight.get("takeoff_frame")), _val(flight.get("touchdown_frame"))
-    g, v0, apex = _val(flight.get("implied_gravity_mps2")), _val(flight.get("takeoff_speed_mps")), \
-        _val(flight.get("apex_frame"))
+    to, td = as_float(flight.get("takeoff_frame")), as_float(flight.get("touchdown_frame"))
+    g, v0, apex = as_float(flight.get("implied_gravity_mps2")), as_float(flight.get("takeoff_speed_mps")), \
+        as_float(flight.get("apex_frame"))
     f, z = _series(frames, heights)
     ok = np.isfinite(f) & np.isfinite(z)
     if not all(map(math.isfinite, (to, td, g, v0, fps))) or td <= to or fps <= 0 or ok.sum() < 2:
@@ -158,13 +151,13 @@ def scene_gravity_arc(flight: dict, frames, heights, fps: float, g_scene: float)
     Drawn beside a floaty or heavy flight so the mismatch shows: z(τ) = z_to + v0·τ − ½·g·τ².
     None for ballistic flights or missing data.
     """
-    if _verdict_word(flight) not in ("floaty", "heavy") or not g_scene > 0:
+    if verdict_word(flight) not in ("floaty", "heavy") or not g_scene > 0:
         return None
     fitted = flight_parabola(flight, frames, heights, fps)
     if fitted is None:
         return None
-    to, td, v0 = _val(flight.get("takeoff_frame")), _val(flight.get("touchdown_frame")), \
-        _val(flight.get("takeoff_speed_mps"))
+    to, td, v0 = as_float(flight.get("takeoff_frame")), as_float(flight.get("touchdown_frame")), \
+        as_float(flight.get("takeoff_speed_mps"))
     z_to, z_td = float(fitted[1][0]), float(fitted[1][-1])
     # Positive root of z_to + v0·τ − ½gτ² = z_td, capped at the animated touchdown.
     disc = v0 * v0 + 2 * g_scene * (z_to - z_td)
@@ -180,7 +173,7 @@ def scene_gravity_arc(flight: dict, frames, heights, fps: float, g_scene: float)
 def _parabolas(clip):
     """(flight, fitted arc, scene-gravity arc or None) for each flight that can be drawn."""
     a, bh = _analysis(clip), clip.get("body_height") or {}
-    fps, g_scene = _val(a.get("fps")), _val(a.get("gravity_mps2"))
+    fps, g_scene = as_float(a.get("fps")), as_float(a.get("gravity_mps2"))
     out = []
     for fl in a.get("flights") or []:
         p = flight_parabola(fl, bh.get("frames"), bh.get("height_m"), fps)
@@ -245,16 +238,16 @@ def load_figure(clip) -> str:
     for ph in a.get("phases") or []:
         name = str(ph.get("name", ""))
         short, fill = PHASE_STYLE.get(name, OTHER_PHASE)
-        parts.append(band(area, _val(ph.get("start_frame")), _val(ph.get("end_frame")), fill, "phase",
-                          short, f"{name}: frames {num(_val(ph.get('start_frame')), 1)}–"
-                                 f"{num(_val(ph.get('end_frame')), 1)}"))
+        parts.append(band(area, as_float(ph.get("start_frame")), as_float(ph.get("end_frame")), fill, "phase",
+                          short, f"{name}: frames {num(as_float(ph.get('start_frame')), 1)}–"
+                                 f"{num(as_float(ph.get('end_frame')), 1)}"))
         if name not in seen:
             seen.append(name)
     parts.append(axes(area, "frame", "load (g)"))
     parts.append(hline(area, 0.0, "ref zero") + hline(area, 1.0, "ref one"))
     for fl in a.get("flights") or []:
         for event in ("takeoff", "apex", "touchdown"):
-            x = _val(fl.get(f"{event}_frame"))
+            x = as_float(fl.get(f"{event}_frame"))
             if math.isfinite(x):
                 parts.append(vline(area, x, f"event {event}", event, EVENT_ANCHOR[event]))
     parts.append(polyline(area, frames, load, "load"))
@@ -278,7 +271,7 @@ def height_figure(clip) -> str:
         return '<p class="empty">No body height was given for this clip.</p>'
     bh = clip.get("body_height") or {}
     frames, z = _series(bh.get("frames"), bh.get("height_m"))
-    g_scene = _val(_analysis(clip).get("gravity_mps2"))
+    g_scene = as_float(_analysis(clip).get("gravity_mps2"))
     parts = [svg_open(area, "Body height over time with the parabola each flight implies"),
              axes(area, "frame", "height (m)"), polyline(area, frames, z, "body")]
     labels = []
@@ -292,11 +285,11 @@ def height_figure(clip) -> str:
             parts.append(polyline(area, ref[0], ref[1], "ballistic", data={"flight": k}))
             parts.append(f'<text class="ref-label halo" x="{num(float(area.x_px(ref[0][-1])) + 5)}" '
                          f'y="{num(float(area.y_px(ref[1][-1])) - 6)}">at scene gravity</text>')
-        g = _val(fl.get("implied_gravity_mps2"))
-        ratio = g / g_scene if g_scene > 0 else _val(fl.get("gravity_ratio"))
+        g = as_float(fl.get("implied_gravity_mps2"))
+        ratio = g / g_scene if g_scene > 0 else as_float(fl.get("gravity_ratio"))
         i = int(np.argmax(pz))
         parts.append(marker(area, pf[i], pz[i], "apex-dot",
-                            f"fit: {_fx(g, 2)} m/s² = {_fx(ratio, 2)} g"))
+                            f"fit: {fmt_fixed(g, 2)} m/s² = {fmt_fixed(ratio, 2)} g"))
     parts += [_with_labels(area, labels), svg_close()]
     legend = ""
     if arcs:
@@ -333,128 +326,13 @@ def chain_figure(clip) -> str:
         parts += [_peak_labels(area, labels), svg_close(), f'<p class="legend">{"".join(legend)}</p>']
     rows = []
     for k, ch in enumerate(chains):
-        before, after = _val(ch.get("keys_before")), _val(ch.get("keys_after"))
-        pct = f"{_fx(100 * (1 - after / before), 1)} %" if before > 0 and math.isfinite(after) else "—"
-        rows.append(f"<tr><td>{esc(ch.get('chain', f'chain {k + 1}'))}</td><td>{_count(before)}</td>"
-                    f"<td>{_count(after)}</td><td>{pct}</td></tr>")
+        before, after = as_float(ch.get("keys_before")), as_float(ch.get("keys_after"))
+        pct = f"{fmt_fixed(100 * (1 - after / before), 1)} %" if before > 0 and math.isfinite(after) else "—"
+        rows.append(f"<tr><td>{esc(ch.get('chain', f'chain {k + 1}'))}</td><td>{fmt_count(before)}</td>"
+                    f"<td>{fmt_count(after)}</td><td>{pct}</td></tr>")
     parts.append('<table class="keys"><thead><tr><th>chain</th><th>keys simulated</th><th>keys after '
                  'reduction</th><th>reduction</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table>")
     return "".join(parts)
-
-
-def _fx(x: float, digits: int) -> str:
-    """Fixed decimals for prose ("0.45 g", "4.0 g"); '—' for a missing value."""
-    if not math.isfinite(x):
-        return "—"
-    text = f"{x:.{digits}f}"
-    return text[1:] if text.startswith("-") and float(text) == 0 else text
-
-
-def _count(x: float) -> str:
-    return str(int(round(x))) if math.isfinite(x) else "—"
-
-
-# ---------------------------------------------------------------- findings in plain words
-
-def _frames_text(n: float) -> str:
-    k = int(round(abs(n)))
-    return f"{k} frame" if k == 1 else f"{k} frames"
-
-
-def _verdict_word(fl: dict) -> str:
-    return str(fl.get("verdict", "")).split(":")[0].strip()
-
-
-def verdict_text(fl: dict) -> str:
-    """'floaty: 0.45 g' (two decimals; the core's verdict rounds to one)."""
-    word, ratio = _verdict_word(fl), _val(fl.get("gravity_ratio"))
-    if word in ("floaty", "heavy", "ballistic") and math.isfinite(ratio):
-        return f"{word}: {_fx(ratio, 2)} g"
-    return str(fl.get("verdict", "")) or "not checked"
-
-
-def flight_findings(fl: dict, fps: float, g_scene: float):
-    """(kind, text) pairs for one flight; kind is 'fix' for problems, 'note' for information."""
-    out = []
-    verdict = str(fl.get("verdict", ""))
-    word = _verdict_word(fl)
-    g, ratio = _val(fl.get("implied_gravity_mps2")), _val(fl.get("gravity_ratio"))
-    hang, apex = _val(fl.get("hang_time_s")), _val(fl.get("apex_height_m"))
-    v0, vh = _val(fl.get("takeoff_speed_mps")), _val(fl.get("horizontal_speed_mps"))
-    if word in ("floaty", "heavy") and math.isfinite(ratio):
-        feel = ("falls slower than gravity, so it hangs in the air" if word == "floaty"
-                else "falls faster than gravity, so it looks rushed and heavy")
-        out.append(("fix", f"Reads {word}: {_fx(ratio, 2)} g. The body {feel} (implied gravity "
-                           f"{_fx(g, 2)} m/s², scene {_fx(g_scene, 2)} m/s²)."))
-        advice = []
-        retime = _val(fl.get("retime_frames"))
-        if math.isfinite(retime) and round(abs(retime)) >= 1:
-            advice.append(f"{'shorten' if retime < 0 else 'lengthen'} the hang by {_frames_text(retime)} "
-                          f"for this apex")
-        target = _val(fl.get("apex_for_hang_time_m"))
-        if math.isfinite(target) and math.isfinite(apex):
-            advice.append(f"{'raise' if target > apex else 'lower'} the apex to {_fx(target, 2)} m above "
-                          f"takeoff for this hang")
-        if advice:
-            text = ", or ".join(advice)
-            out.append(("fix", text[0].upper() + text[1:] + "."))
-    elif word == "ballistic":
-        out.append(("note", f"Reads ballistic: {_fx(ratio, 2)} g (implied gravity {_fx(g, 2)} m/s², scene {_fx(g_scene, 2)} m/s²)."))
-    else:
-        out.append(("fix", f"{verdict[:1].upper()}{verdict[1:]}." if verdict else "The flight could not be checked."))
-    if math.isfinite(hang):
-        facts = [f"hang time {_fx(hang, 2)} s ({_fx(hang * fps, 1)} frames)" if fps > 0 else
-                 f"hang time {_fx(hang, 2)} s"]
-        if math.isfinite(apex):
-            facts.append(f"apex {_fx(apex, 2)} m above takeoff")
-        if math.isfinite(v0):
-            facts.append(f"takeoff speed {_fx(v0, 2)} m/s up")
-        if math.isfinite(vh):
-            facts.append(f"forward {_fx(vh, 2)} m/s")
-        text = ", ".join(facts)
-        out.append(("note", text[0].upper() + text[1:] + "."))
-    ease = _val(fl.get("horizontal_accel_mps2"))
-    if math.isfinite(ease) and abs(ease) > HORIZONTAL_EASE_MPS2:
-        how = "slows" if ease < 0 else "speeds up"
-        out.append(("fix", f"The forward speed {how} in the air ({_fx(ease, 2)} m/s²): ballistic flight keeps "
-                           f"it constant. Key the travel linear from takeoff to touchdown."))
-    offset = _val(fl.get("arm_swing_offset_frames"))
-    if fl.get("late_arm_swing") and math.isfinite(offset):
-        drop = _val(fl.get("arm_swing_body_drop_m"))
-        drop_text = f": in the air that pulls the rest of the body {_fx(100 * drop, 1)} cm down" \
-            if math.isfinite(drop) and drop > 0 else ""
-        out.append(("fix", f"Late arm swing: the arms swing up hardest {_fx(offset, 1)} frames after "
-                           f"takeoff{drop_text}. Peak the swing before takeoff."))
-    elif math.isfinite(offset):
-        out.append(("note", f"Arm swing peaks {_fx(-offset, 1)} frames before takeoff."))
-    return out
-
-
-def landing_finding(landing: dict) -> str:
-    return (f"Landing at frame {_fx(_val(landing.get('frame')), 1)}: peak load "
-            f"{_fx(_val(landing.get('peak_load_g')), 1)} g at frame {_fx(_val(landing.get('peak_frame')), 1)}; "
-            f"the body stops descending {_fx(_val(landing.get('decel_frames')), 1)} frames after touchdown.")
-
-
-def clip_findings(analysis: dict):
-    """Findings of one clip: (groups, n_fix, warnings); groups are (heading, [(kind, text)])."""
-    fps, g_scene = _val(analysis.get("fps")), _val(analysis.get("gravity_mps2"))
-    landings = list(analysis.get("landings") or [])
-    groups = []
-    for k, fl in enumerate(analysis.get("flights") or []):
-        items = flight_findings(fl, fps, g_scene)
-        td = _val(fl.get("touchdown_frame"))
-        for land in list(landings):
-            if abs(_val(land.get("frame")) - td) < 0.5:
-                items.append(("note", landing_finding(land)))
-                landings.remove(land)
-        heading = (f"Jump {k + 1}: takeoff frame {num(_val(fl.get('takeoff_frame')), 1)}, "
-                   f"touchdown frame {num(td, 1)}")
-        groups.append((heading, items))
-    if landings:
-        groups.append(("Other landings", [("note", landing_finding(x)) for x in landings]))
-    n_fix = sum(kind == "fix" for _, items in groups for kind, _ in items)
-    return groups, n_fix, [str(w) for w in analysis.get("warnings") or []]
 
 
 def findings_section(clip) -> str:
@@ -499,14 +377,14 @@ def _overview(clips) -> str:
 
 def _clip_article(index: int, clip) -> str:
     a = _analysis(clip)
-    frames = [f for f in (_val(x) for x in a.get("frames") or []) if math.isfinite(f)]
+    frames = [f for f in (as_float(x) for x in a.get("frames") or []) if math.isfinite(f)]
     meta = []
     if frames:
         meta.append(f"frames {num(min(frames), 1)}–{num(max(frames), 1)}")
-    if math.isfinite(_val(a.get("fps"))):
-        meta.append(f"{num(_val(a.get('fps')), 3)} fps")
-    if math.isfinite(_val(a.get("gravity_mps2"))):
-        meta.append(f"gravity {num(_val(a.get('gravity_mps2')), 2)} m/s²")
+    if math.isfinite(as_float(a.get("fps"))):
+        meta.append(f"{num(as_float(a.get('fps')), 3)} fps")
+    if math.isfinite(as_float(a.get("gravity_mps2"))):
+        meta.append(f"gravity {num(as_float(a.get('gravity_mps2')), 2)} m/s²")
     if a.get("body_source"):
         meta.append("body: " + {"com": "centre of mass", "root": "root bone"}.get(a["body_source"], str(a["body_source"])))
     sections = [("Load over time", load_figure(clip)),
