@@ -408,15 +408,20 @@ def reduce_euler_curves(frames, eulers, tolerance_rad: float) -> list[ReducedCur
 
 def reduce_euler_groups(frames, eulers, tolerance_rad: float) -> list[list[ReducedCurve]]:
     """:func:`reduce_euler_curves` for many rotations at once, eulers shape (n_rotations, n_frames, 3)."""
-    eulers = np.asarray(eulers, dtype=np.float64)
-    if eulers.ndim != 3 or eulers.shape[2] != 3:
-        raise InputError(f"eulers must have shape (n_rotations, n_frames, 3), got {eulers.shape}")
+    frames, grouped, tolerance_rad = _validate_groups(frames, eulers, 3, tolerance_rad, "eulers")
+    return _reduce_groups(frames, grouped, tolerance_rad, _float32_margin(frames, grouped), _abs_error)
+
+
+def _validate_groups(frames, values, n_channels, tolerance, name):
+    """Checked (frames, values (g, n, c) float64, tolerance) for the grouped entry points."""
+    values = np.asarray(values, dtype=np.float64)
+    if values.ndim != 3 or values.shape[2] != n_channels:
+        raise InputError(f"{name} must have shape (n_rotations, n_frames, {n_channels}), got {values.shape}")
     groups = []
-    for g in range(eulers.shape[0]):
-        frames_v, e_t, tolerance_rad = _validate(frames, eulers[g].T, tolerance_rad, "eulers.T")
-        groups.append(e_t.T)
-    grouped = np.stack(groups)
-    return _reduce_groups(frames_v, grouped, tolerance_rad, _float32_margin(frames_v, grouped), _abs_error)
+    for g in range(values.shape[0]):
+        frames_v, v_t, tolerance = _validate(frames, values[g].T, tolerance, f"{name}.T")
+        groups.append(v_t.T)
+    return frames_v, np.stack(groups), tolerance
 
 
 def reduce_quaternion_curves(frames, quats, tolerance_rad: float) -> list[ReducedCurve]:
@@ -459,15 +464,7 @@ def reduce_quaternion_groups(frames, quats, tolerance_rad: float) -> list[list[R
     -------
     list (per rotation) of 4 ReducedCurve sharing their key frames.
     """
-    quats = np.asarray(quats, dtype=np.float64)
-    if quats.ndim != 3 or quats.shape[2] != 4:
-        raise InputError(f"quats must have shape (n_rotations, n_frames, 4), got {quats.shape}")
-    groups = []
-    for g in range(quats.shape[0]):
-        frames_v, quats_t, tolerance_rad = _validate(frames, quats[g].T, tolerance_rad, "quats.T")
-        groups.append(quats_t.T)
-    frames = frames_v
-    q = np.stack(groups)
+    frames, q, tolerance_rad = _validate_groups(frames, quats, 4, tolerance_rad, "quats")
     norm = np.linalg.norm(q, axis=2, keepdims=True)
     if np.any(norm < 1e-6):
         raise InputError("quats contains a zero-length quaternion")
