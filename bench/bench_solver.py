@@ -70,7 +70,10 @@ def baseline(chains, settings, n_frames):
     br = prep["body_response"][:, 0, 0].tolist()
     out = np.empty((n_frames, N_CHAINS, N_LINKS, 3))
     out[0] = d0
-    targets, toward, spin, ang = prep["targets"], prep["toward"], prep["spin"], prep["ang"]
+    targets = prep["targets"]
+    # (T-1, 3, C*N) rows -> (T-1, C, N, 3), for plain indexing
+    toward, spin = (np.moveaxis(prep[k].reshape(n_frames - 1, 3, N_CHAINS, N_LINKS), 1, -1) for k in ("toward", "spin"))
+    ang = prep["ang"].reshape(n_frames - 1, N_CHAINS, N_LINKS)
     a_piv = prep["anchor_acc"]
     for f in range(n_frames - 1):
         for j in range(n_sub):

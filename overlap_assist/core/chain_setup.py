@@ -28,6 +28,9 @@ within 3 % up to 35 degrees) stops growing past 120 degrees and falls to 0 at 18
 spring's stiffness never exceeds 4 k (covered by automatic sub-stepping)."""
 
 
+_TURN_TINY = 1e-12
+"""Below this sine a frame's turn of a link counts as none (or, near 180 degrees, as a flip)."""
+
 FELT_NONE_MPS2 = 1e-6
 """Felt accelerations below this count as none in the pre-roll: finite differences of a ballistic
 path leave ~1e-10 m/s^2 of rounding, which must not pick a hanging direction for a free link."""
@@ -98,19 +101,25 @@ def prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states) -> 
     n_sub = int(min(max(wanted, 1), MAX_SUBSTEPS))
 
     # Animated rotation of each link between frames: angle, unit tangent toward the next
-    # direction, angular velocity (constant over the frame; slerp within it).
-    t0, t1 = targets[:-1], targets[1:]
-    cos_a = np.clip(dot(t0, t1), -1.0, 1.0)
-    side = t1 - cos_a[..., None] * t0
-    ang = np.arctan2(np.sqrt(dot(side, side)), cos_a)
+    # direction, angular velocity (constant over the frame; slerp within it). Computed with
+    # components first, (T, 3, M), M = C*N: the layout of the solver's loop.
+    n_links_all = n_chains * n_links
+    rows = np.ascontiguousarray(np.moveaxis(targets, -1, 1)).reshape(n_frames, 3, n_links_all)
+    t0, t1 = rows[:-1], rows[1:]
+    cos_a = np.clip((t0 * t1).sum(axis=1), -1.0, 1.0)  # (T-1, M)
+    side = t1 - cos_a[:, None] * t0
+    sin_a = np.sqrt((side * side).sum(axis=1))
+    ang = np.arctan2(sin_a, cos_a)
+    turns = (sin_a > _TURN_TINY) & (ang > 1e-15)
+    toward = side * (np.where(turns, ang, 0.0) / np.where(turns, sin_a, 1.0))[:, None]  # ang x unit
+    spin = _cross_rows(t0, toward) / dt_s
+    toward = toward / np.where(turns, ang, 1.0)[:, None]
     # Where a link flips by ~180 degrees in one frame the turning plane is undefined: pick one.
-    fallback = np.zeros(3)
-    flips = cos_a < -0.999999
+    flips = (cos_a < -0.999999) & ~turns
     if flips.any():
-        fallback = np.where(flips[..., None], any_perpendicular(t0), 0.0)
-    toward = unit_or(side, fallback)
-    toward = np.where((ang > 1e-15)[..., None], toward, 0.0)
-    spin = np.cross(t0, toward) * (ang / dt_s)[..., None]
+        other = np.moveaxis(any_perpendicular(np.moveaxis(t0, 1, -1)), -1, 1)
+        toward = np.where(flips[:, None], other, toward)
+        spin = np.where(flips[:, None], _cross_rows(t0, toward) * (ang / dt_s)[:, None], spin)
 
     anchor_acc, anchor_vel = pivot_derivatives(pivots, dt_s)
     bend = col("bend_limit_rad")
@@ -125,6 +134,7 @@ def prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states) -> 
         "lengths_safe": lengths,
         "lengths_active": np.where(mask, lengths, 0.0),
         "targets": targets,
+        "target_rows": rows,
         "ang": ang,
         "toward": toward,
         "spin": spin,
@@ -145,6 +155,13 @@ def prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states) -> 
         "colliders": colliders,
         "initial_states": initial_states,
     }
+
+
+def _cross_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Cross product of arrays laid out (T, 3, M), components on axis 1."""
+    a0, a1, a2 = a[:, 0], a[:, 1], a[:, 2]
+    b0, b1, b2 = b[:, 0], b[:, 1], b[:, 2]
+    return np.stack([a1 * b2 - a2 * b1, a2 * b0 - a0 * b2, a0 * b1 - a1 * b0], axis=1)
 
 
 def pivot_derivatives(pivots: np.ndarray, dt_s: float) -> tuple[np.ndarray, np.ndarray]:
@@ -174,7 +191,8 @@ def initial_state(prep: dict) -> tuple[np.ndarray, np.ndarray]:
     felt0 = prep["felt_const"] - prep["body_response"] * prep["anchor_acc"][0][:, None, :]
     felt0 = felt0 - prep["drag"] * prep["anchor_vel"][0][:, None, :]  # (C, 1, 3)
     d = settle_directions(t0, felt0, prep["stiffness"], ROD_LEVER / prep["lengths_safe"], prep["bend"])
-    u = np.cross(prep["spin"][0], d)
+    n_chains, n_links = prep["n_chains"], prep["n_links"]
+    u = np.cross(prep["spin"][0].T.reshape(n_chains, n_links, 3), d)
     states = prep["initial_states"]
     if states is not None:
         for i, st in enumerate(states):
@@ -234,14 +252,16 @@ def spring_moment(stiffness, angle_rad):
 
 
 def package(prep: dict, out: np.ndarray, rates: np.ndarray, contacts: np.ndarray) -> ChainMotion:
+    """Split the padded (T, C, N, 3) result into per-chain arrays (tips and swings for all at once)."""
     n_frames = prep["n_frames"]
+    tips_all = prep["pivots"][:, :, None, :] + np.cumsum(prep["lengths_active"][..., None] * out, axis=2)
+    cos_sw = np.clip(dot(out, prep["targets"]), -1.0, 1.0)
+    swing_all = np.arccos(np.where(prep["mask"], cos_sw, 1.0)).max(axis=0) if n_frames else None
     dirs, tips, counts, swings, finals = [], [], [], [], []
     for i, m in enumerate(prep["chain_links"]):
         d = out[:, i, :m].copy()
-        lengths = prep["lengths_active"][i, :m]
-        tips.append(prep["pivots"][:, i, None, :] + np.cumsum(lengths[:, None] * d, axis=1))
-        cos_sw = np.clip(np.einsum("fli,fli->fl", d, prep["targets"][:, i, :m]), -1.0, 1.0)
-        swings.append(float(np.max(np.arccos(cos_sw))) if n_frames else 0.0)
+        tips.append(tips_all[:, i, :m].copy())
+        swings.append(float(swing_all[i].max()) if n_frames else 0.0)
         dirs.append(d)
         counts.append(contacts[i, :m].copy())
         finals.append(ChainState(d[-1], rates[i, :m]))

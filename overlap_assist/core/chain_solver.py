@@ -55,7 +55,7 @@ from .chain_types import ChainInput, ChainMotion, ChainSettings, ChainState, Col
 from .colliders import any_perpendicular, project_out
 from .swing import swing_offsets  # noqa: F401  (part of the solver's public API)
 
-__all__ = ["simulate_chains", "step", "limit_bend", "swing_offsets"]
+__all__ = ["simulate_chains", "limit_bend", "swing_offsets"]
 
 _TINY = 1e-12
 
@@ -95,63 +95,68 @@ def simulate_chains(
     prep = prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states)
     n_frames, n_sub = prep["n_frames"], prep["n_sub"]
     n_chains, n_links = prep["n_chains"], prep["n_links"]
-    co = _coefficients(prep, dt_s / n_sub)
-    # Component-first layout inside the loop, (3, C, N) seen as (3, C*N): every per-link
-    # scalar is kept replicated on the 3 rows, so the kernel needs no broadcasting.
-    targets = np.moveaxis(prep["targets"], -1, 1)  # (T, 3, C, N)
-    toward = np.moveaxis(prep["toward"], -1, 1)  # (T-1, 3, C, N)
-    # Damper reference: animated angular velocity x the damper's share of damping, (T-1, 3, C, N).
-    spin = np.moveaxis(prep["spin"], -1, 1) * prep["relative_share"]
-    ang = prep["ang"]  # (T-1, C, N)
-    acc = prep["anchor_acc"].transpose(0, 2, 1)[..., None]  # (T, 3, C, 1)
-    vel = prep["anchor_vel"].transpose(0, 2, 1)[..., None]
-    felt_const = prep["felt_const"].transpose(2, 0, 1)  # (3, C, 1)
-    br, drag = prep["body_response"][:, :, 0], prep["drag"][:, :, 0]  # (C, 1)
-    limit, coll = prep["bend_limited"], prep["colliders"]
-    cos_lim, sin_lim = prep["cos_lim"], prep["sin_lim"]
+    co = _Kernel(prep, dt_s / n_sub)
+    # Component-first layout inside the loop, (3, C, N) seen as (3, M), M = C*N: every per-link
+    # scalar is kept replicated on the 3 rows, so the kernel needs no broadcasting. The inputs
+    # are laid out with M last as well (numpy's inner loops then run over M, not over N).
     flat = (3, n_chains * n_links)
-    zeros_links = np.zeros((n_sub, 3, n_chains, n_links))
+
+    def per_link(arr):  # (T, C, 3) per chain -> (T, 3, M)
+        return np.repeat(arr.transpose(0, 2, 1), n_links, axis=-1)
+
+    targets, toward = prep["target_rows"], prep["toward"]  # (T, 3, M), (T-1, 3, M)
+    # Damper reference: animated angular velocity x the damper's share of damping, (T-1, 3, M).
+    spin = prep["spin"] * prep["relative_share"].reshape(-1)
+    ang = prep["ang"][:, None]  # (T-1, 1, M)
+    # Lever x the felt acceleration at each chain's pivot, per frame (varies linearly within one).
+    felt = prep["felt_const"][:, 0] - prep["body_response"][:, 0] * prep["anchor_acc"]  # (T, C, 3)
+    if co.any_drag:
+        felt = felt - prep["drag"][:, 0] * prep["anchor_vel"]
+    lever_felt = per_link(felt) * (ROD_LEVER / prep["lengths_safe"]).reshape(-1)
+    limit, coll = prep["bend_limited"], prep["colliders"]
 
     d, u = initial_state(prep)  # (C, N, 3)
     if coll is not None:
         d, u, _ = _collide(prep, coll, prep["pivots"][0], 0, 0.0, d, u)
     d = np.moveaxis(d, -1, 0).reshape(flat)
     u = np.moveaxis(u, -1, 0).reshape(flat)
-    change = np.zeros(flat)
+    rate_change = np.zeros(flat)  # angular acceleration of each link over the last sub-step
     out = np.empty((n_frames,) + flat)
     out[0] = d
     contacts = np.zeros((n_chains, n_links), dtype=np.int64)
-    s_mid = ((np.arange(n_sub) + 0.5) / n_sub)[:, None, None, None]
-    s_end = ((np.arange(n_sub) + 1.0) / n_sub)[:, None, None, None]
+    s_mid = ((np.arange(n_sub) + 0.5) / n_sub)[:, None, None]
+    s_end = ((np.arange(n_sub) + 1.0) / n_sub)[:, None, None]
+    pair = np.empty((2,) + flat)  # the step's new rate and half turn, side by side
+    step = co.step
     for k0 in range(0, n_frames - 1, _CHUNK_FRAMES):
-        # Inputs of every sub-step of a chunk of frames, computed at once.
+        # Inputs of every sub-step of a chunk of frames, computed at once (see _Kernel.step).
         k1 = min(k0 + _CHUNK_FRAMES, n_frames - 1)
-        a_c = ang[k0:k1, None, None]  # (K, 1, 1, C, N)
-        t_c = targets[k0:k1, None]
-        t_mid = t_c * np.cos(s_mid * a_c) + toward[k0:k1, None] * np.sin(s_mid * a_c)
-        t_mid = t_mid.reshape((k1 - k0, n_sub) + flat)
-        a0, a1 = acc[k0:k1, None], acc[k0 + 1:k1 + 1, None]
-        felt = felt_const - br * (a0 + s_mid * (a1 - a0))  # (K, n_sub, 3, C, 1)
-        if co.any_drag:
-            v0, v1 = vel[k0:k1, None], vel[k0 + 1:k1 + 1, None]
-            felt = felt - drag * (v0 + s_mid * (v1 - v0))
-        felt = (felt + zeros_links).reshape((k1 - k0, n_sub) + flat)
-        spin_c = spin[k0:k1].reshape((k1 - k0,) + flat)
-        spin_a, spin_b = spin_c[:, _I1], spin_c[:, _I2]
-        turning = co.any_relative & np.any(a_c != 0.0, axis=(1, 2, 3, 4))
+        a_c = ang[k0:k1, None]  # (K, 1, 1, M)
+        t_c, w_c = targets[k0:k1, None], toward[k0:k1, None]  # (K, 1, 3, M)
+        rows = np.empty((k1 - k0, n_sub, _SLOTS) + flat)
+        # Animated directions at mid-sub-step (slerp), by turning on in steps of a / n_sub
+        # (angle-sum recurrence: two sines and cosines per chunk instead of two per sub-step).
+        cos_j, sin_j = np.cos(s_mid[0] * a_c[:, 0]), np.sin(s_mid[0] * a_c[:, 0])  # (K, 1, M)
+        cos_inc, sin_inc = np.cos(a_c[:, 0] / n_sub), np.sin(a_c[:, 0] / n_sub)
+        for j in range(n_sub):
+            if j:
+                cos_j, sin_j = cos_j * cos_inc - sin_j * sin_inc, sin_j * cos_inc + cos_j * sin_inc
+            rows[:, j, 0] = t_c[:, 0] * cos_j + w_c[:, 0] * sin_j
+        g0, g1 = lever_felt[k0:k1, None], lever_felt[k0 + 1:k1 + 1, None]
+        rows[:, :, 1] = g0 + s_mid * (g1 - g0)
+        rows[:, :, 3] = spin[k0:k1, None][:, :, _I2]
+        rows[:, :, 4] = spin[k0:k1, None][:, :, _I1]
         if limit:
-            t_end = t_c * np.cos(s_end * a_c) + toward[k0:k1, None] * np.sin(s_end * a_c)
-            t_end = t_end.reshape((k1 - k0, n_sub) + flat)
+            t_end = t_c * np.cos(s_end * a_c) + w_c * np.sin(s_end * a_c)
         for k in range(k0, k1):
             i = k - k0
-            spin_rows = (spin_a[i], spin_b[i]) if turning[i] else None
-            t_mid_k, felt_k = t_mid[i], felt[i]
+            rows_k = rows[i]
             for j in range(n_sub):
-                d, u, change = step(d, u, change, t_mid_k[j], spin_rows, felt_k[j], co)
+                d, u, rate_change = step(d, u, rate_change, rows_k[j], pair)
                 if limit:
                     d, u = limit_bend(d, u, t_end[i, j], co.cos_lim, co.sin_lim)
                 if coll is not None:
-                    s = float(s_end[j, 0, 0, 0])
+                    s = float(s_end[j, 0, 0])
                     pivot = prep["pivots"][k] + s * (prep["pivots"][k + 1] - prep["pivots"][k])
                     # transpose, not moveaxis: same views, without moveaxis' per-call axis checks
                     # (they cost more than the collision itself at this size).
@@ -162,7 +167,7 @@ def simulate_chains(
                     u = u3.transpose(2, 0, 1).reshape(flat)
                     contacts += touched
             out[k + 1] = d
-        # The Cayley turn keeps |d| = 1 and d . u = 0 exactly but for rounding; wash that out.
+        # The turn keeps |d| = 1 and d . u = 0 exactly but for rounding; wash that out.
         d = d / np.sqrt(_ONES33 @ (d * d))
         u = u - (_ONES33 @ (u * d)) * d
         out[k1] = d
@@ -171,110 +176,164 @@ def simulate_chains(
     return package(prep, out, rates, contacts)
 
 
-class _Coefficients:
-    """Per-link constants of the step kernel for one sub-step length ``h``.
-
-    Arrays have shape (3, C*N): each per-link value replicated on three rows.
-    """
-
-    __slots__ = (
-        "h", "half_h", "shape", "length", "length_per_h", "length_drag", "any_drag", "any_relative", "lever",
-        "k2", "damp", "one_plus_damp", "quarter_h2", "q_scale", "q2_scale", "cos_lim", "sin_lim",
-    )
-
-
-def _coefficients(prep: dict, h: float) -> _Coefficients:
-    n_chains, n_links = prep["n_chains"], prep["n_links"]
-
-    def rows(x):
-        x = np.broadcast_to(np.asarray(x, dtype=np.float64), (n_chains, n_links)).reshape(1, -1)
-        return np.ascontiguousarray(np.broadcast_to(x, (3, x.shape[1])))
-
-    co = _Coefficients()
-    k = prep["stiffness"]  # omega_i^2, (C, N)
-    damp = prep["damping"]  # total damping coefficient incl. air drag, (C, N)
-    lever = ROD_LEVER / prep["lengths_safe"]
-    co.h = h
-    co.half_h = 0.5 * h
-    co.shape = (3, n_chains, n_links)
-    co.length = rows(prep["lengths_active"])
-    co.length_per_h = co.length / h
-    co.length_drag = co.length * rows(prep["drag"][:, :, 0])
-    co.any_drag = bool(np.any(prep["drag"] > 0.0))
-    co.any_relative = bool(np.any(prep["relative_share"] > 0.0))
-    co.lever = rows(lever)
-    co.k2 = rows(2.0 * k)
-    co.damp = rows(damp)
-    co.one_plus_damp = rows(1.0 + 0.5 * h * damp)
-    co.quarter_h2 = 0.25 * h * h
-    co.q_scale = (0.25 * h) ** 2
-    co.q2_scale = 2.0 * (0.25 * h) ** 2
-    co.cos_lim = rows(prep["cos_lim"])
-    co.sin_lim = rows(prep["sin_lim"])
-    return co
-
-
 _ONES33 = np.ones((3, 3))
 """``_ONES33 @ (a * b)``: the dot product of a and b, replicated on all three rows."""
 
+_ONES66 = np.kron(np.eye(2), _ONES33)
+"""The same for two stacked products of vectors, (6, M)."""
 
 _I1 = np.array([1, 2, 0])
 _I2 = np.array([2, 0, 1])
-def step(d, u, change, target, spin_rows, felt, co):
-    """Advance all links of all chains by one sub-step (pure: returns new arrays).
 
-    Arrays are component-first, ``(3, M)`` for the M = C*N (padded) links of C chains; the
-    links of a chain are consecutive.
+_SLOTS = 5
+"""Rows of a sub-step's inputs: animated direction, lever x felt load at the pivot, (lever x
+felt load at the link's head, filled in by the step), damper spin (z, x, y), (y, z, x)."""
 
-    Parameters
-    ----------
-    d, u, change : ndarray, shape (3, M)
-        Directions (unit), their rates (1/s, perpendicular to d) and the rates' change over
-        the last sub-step (1/s).
-    target : ndarray, shape (3, M)
-        Animated directions at mid-step.
-    spin_rows : tuple of two ndarray (3, M), or None
-        Rows (y, z, x) and (z, x, y) of the damper's reference angular velocity (the animated
-        one x the relative share of damping); None when nothing turns.
-    felt : ndarray, shape (3, M)
-        Felt acceleration at each chain's pivot (gravity, anchor motion, drag), m/s^2.
-    co : _Coefficients
 
-    Returns
-    -------
-    d, u, change : ndarray, shape (3, M)
+def _projections() -> np.ndarray:
+    """(12, 15) matrix turning the products ``rows * d`` (seen as (15, M)) into
+    [target . d, lever felt_pivot . d, lever felt_head . d] (each on three rows) and
+    spin x d: a dot product is a sum of component products, and a cross product a signed
+    permutation of them, so one matrix product gives all four."""
+    a = np.zeros((12, 3 * _SLOTS))
+    for slot in range(3):
+        a[3 * slot:3 * slot + 3, 3 * slot:3 * slot + 3] = 1.0
+    # (w x d)_x = w_y d_z - w_z d_y, ...: slot 3 holds (w_z, w_x, w_y), slot 4 (w_y, w_z, w_x).
+    for row, plus, minus in ((0, 2, 1), (1, 0, 2), (2, 1, 0)):
+        a[9 + row, 9 + plus] = 1.0
+        a[9 + row, 12 + minus] = -1.0
+    return a
+
+
+_PROJECT = _projections()
+
+_DENSE_TRANSFER_MAX = 160
+"""Up to this many (padded) links in all, the parent-to-child transfer is one dense matrix
+product; above it, one small product per chain (the dense one grows with the square)."""
+
+
+class _Kernel:
+    """The step of all links of all chains, with its per-link constants for a sub-step ``h``.
+
+    Arrays are component-first, ``(3, M)`` for the M = C*N (padded) links of C chains (the
+    links of a chain consecutive), each per-link value replicated on the three rows; scalars
+    are kept as arrays too (multiplying by an array is cheaper than by a Python float).
     """
-    dot = _ONES33.__matmul__
-    # Felt acceleration at each link's head: the chain pivot's, minus what the parent ends add.
-    parent = co.length_per_h * change - (co.length * dot(u * u)) * d
-    if co.any_drag:
-        parent = parent + co.length_drag * u
-    f = (felt + parent) - parent.reshape(co.shape).cumsum(2).reshape(parent.shape)
-    fd = dot(f * d)
-    c = dot(target * d)
-    # Angular acceleration: felt load on the rod + spring toward the animated direction. The
-    # spring's moment k 2 tan(a/2) has the stiffness 2k / (1 + cos a), its own gain.
-    gain = co.k2 / np.maximum(1.0 + c, SPRING_FLOOR)
-    load = co.lever * (f - fd * d) + gain * (target - c * d)
-    # Trapezoidal rule, linearised: stiffness = spring + the pull of the chain's felt load (fixed
-    # in direction over the step) where the link hangs along it. Taken no lower than the true
-    # stiffness in any direction, the step cannot gain energy. What the parent links add turns
-    # with them, so it has no such stiffness and stays explicit.
-    stiff = gain + np.maximum(co.lever * dot(felt * d), 0.0)
-    hden = co.h / (co.one_plus_damp + co.quarter_h2 * stiff)
-    rel = u
-    if spin_rows is not None:  # damper reference: turning with the animation
-        rel = u - (spin_rows[0] * d[_I2] - spin_rows[1] * d[_I1])
-    u_new = u + hden * (load - (co.damp + co.half_h * stiff) * rel)
-    change = u_new - u
-    # Turn along the great circle of the mean rate (Cayley form of the rotation: the angle is
-    # 2 atan(h |mean| / 2), consistent with the trapezoid), carrying the new rate along.
-    mean = u + u_new  # twice the mean rate
-    q = co.q_scale * dot(mean * mean)  # (h |mean rate| / 2)^2
-    inv = 1.0 / (1.0 + q)
-    d_new = (d * (1.0 - q) + co.half_h * mean) * inv
-    u_new = u_new - (dot(u_new * mean) * inv) * (co.q2_scale * mean + co.half_h * d)
-    return d_new, u_new, change
+
+    def __init__(self, prep: dict, h: float):
+        n_chains, n_links = prep["n_chains"], prep["n_links"]
+        m = n_chains * n_links
+
+        def rows(x):
+            x = np.broadcast_to(np.asarray(x, dtype=np.float64), (n_chains, n_links)).reshape(1, -1)
+            return np.ascontiguousarray(np.broadcast_to(x, (3, m)))
+
+        k = prep["stiffness"]  # omega_i^2, (C, N)
+        damp = prep["damping"]  # total damping coefficient incl. air drag, (C, N)
+        length = prep["lengths_active"]
+        lever = ROD_LEVER / prep["lengths_safe"]
+        self.n_chains, self.n_links = n_chains, n_links
+        self.stacked = (3 * _SLOTS, m)
+        self.any_drag = bool(np.any(prep["drag"] > 0.0))
+        self.drag = rows(prep["drag"][:, :, 0])
+        self.k2 = rows(2.0 * k)
+        self.damp = rows(damp)
+        self.den = rows(1.0 + 0.5 * h * damp)
+        self.h = rows(h)
+        self.half_h = rows(0.5 * h)
+        self.quarter_h = rows(0.25 * h)
+        self.quarter_h2 = rows(0.25 * h * h)
+        self.two = rows(2.0)
+        self.one = rows(1.0)
+        self.floor = rows(SPRING_FLOOR)
+        self.zero = rows(0.0)
+        self.cos_lim = rows(prep["cos_lim"])
+        self.sin_lim = rows(prep["sin_lim"])
+        # transfer[i, j]: how much of link i's end acceleration (per unit length) reaches the
+        # angular acceleration of link j below it in the same chain: length_i x lever_j.
+        block = np.triu(np.ones((n_links, n_links)), 1)[None] * length[:, :, None] * lever[:, None, :]
+        self.dense = m <= _DENSE_TRANSFER_MAX
+        if self.dense:
+            transfer = np.zeros((m, m))
+            for c in range(n_chains):
+                sl = slice(c * n_links, (c + 1) * n_links)
+                transfer[sl, sl] = block[c]
+            self.transfer = transfer
+        else:
+            self.transfer = block  # (C, N, N)
+
+        self.step = self._step_function()
+
+    def _step_function(self):
+        """The step as a closure over the constants (local names: the cheapest lookups)."""
+        # np.dot, not the @ operator: the same BLAS product with less call overhead on 2-D arrays.
+        npdot, ones33, ones66, project = np.dot, _ONES33, _ONES66, _PROJECT
+        subtract, add, multiply, maximum = np.subtract, np.add, np.multiply, np.maximum
+        any_drag, dense, drag, transfer = self.any_drag, self.dense, self.drag, self.transfer
+        chain_shape = (3, self.n_chains, 1, self.n_links)
+        stacked_pair = (6, self.n_chains * self.n_links)
+        stacked, k2, one, two, floor, zero = self.stacked, self.k2, self.one, self.two, self.floor, self.zero
+        damp, den, h, half_h, quarter_h, quarter_h2 = (
+            self.damp, self.den, self.h, self.half_h, self.quarter_h, self.quarter_h2)
+
+        def step(d, u, rate_change, rows, pair):
+            """Advance all links by one sub-step (returns new arrays; writes ``rows[2]``, ``pair``).
+
+            Parameters
+            ----------
+            d, u, rate_change : ndarray, shape (3, M)
+                Directions (unit), their rates (1/s, perpendicular to d) and the rates' change
+                per second over the last sub-step (1/s^2).
+            rows : ndarray, shape (5, 3, M)
+                ``rows[0]``: animated directions at mid-step; ``rows[1]``: lever x the felt
+                acceleration at each chain's pivot (gravity, anchor motion, drag); ``rows[2]`` is
+                overwritten with lever x the felt acceleration at each link's head; ``rows[3]``,
+                ``rows[4]``: components (z, x, y) and (y, z, x) of the damper's reference angular
+                velocity (the animated one x the relative share of damping).
+            pair : ndarray, shape (2, 3, M)
+                Scratch space.
+
+            Returns
+            -------
+            d, u, rate_change : ndarray, shape (3, M)
+            """
+            target, felt_head = rows[0], rows[2]
+            # Acceleration of each link's end relative to its head (tangential, centripetal, air
+            # drag), per unit length; summed down the chain it is what the parent links add to
+            # the felt acceleration at a link's head.
+            end = rate_change - npdot(ones33, u * u) * d
+            if any_drag:
+                end = end + drag * u
+            if dense:
+                subtract(rows[1], npdot(end, transfer), out=felt_head)
+            else:
+                subtract(rows[1], (end.reshape(chain_shape) @ transfer).reshape(end.shape), out=felt_head)
+            proj = npdot(project, (rows * d).reshape(stacked))
+            c = proj[0:3]  # cos of the angle to the animated direction
+            # Angular acceleration: felt load on the rod + spring toward the animated direction.
+            # The spring's moment k 2 tan(a/2) has the stiffness 2k / (1 + cos a), its own gain.
+            gain = k2 / maximum(one + c, floor)
+            load = (felt_head + gain * target) - (proj[6:9] + gain * c) * d
+            # Trapezoidal rule, linearised: stiffness = spring + the pull of the chain's felt load
+            # (fixed in direction over the step) where the link hangs along it. Taken no lower
+            # than the true stiffness in any direction, the step cannot gain energy. What the
+            # parent links add turns with them, so it has no such stiffness and stays explicit.
+            stiff = gain + maximum(proj[3:6], zero)
+            rel = u - proj[9:12]  # the damper acts on the motion relative to the animation's turn
+            rate_change = (load - (damp + half_h * stiff) * rel) / (den + quarter_h2 * stiff)
+            # Turn along the great circle of the mean rate m by the Cayley form of the rotation
+            # (angle 2 atan(|x|), x = h m / 2, consistent with the trapezoid): the half-turn about
+            # d + x after the half-turn about d; the new rate is carried along by the same
+            # rotation. The scale uses |x| only (not |d + x|), so a rounding drift of |d| cannot
+            # grow.
+            u_new, x = pair[0], pair[1]
+            add(u, h * rate_change, out=u_new)
+            multiply(quarter_h, u + u_new, out=x)
+            sizes = npdot(ones66, (pair * x).reshape(stacked_pair))  # [u_new . x, |x|^2], 3 rows each
+            turn = (two / (one + sizes[3:6])) * (d + x)
+            return turn - d, u_new - sizes[0:3] * turn, rate_change
+
+        return step
 
 
 def limit_bend(d, u, target, cos_lim, sin_lim):
