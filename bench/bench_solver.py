@@ -3,9 +3,11 @@
 12 chains x 8 links x 250 frames at 24 fps, 4 sub-steps per frame (default settings: the
 automatic sub-stepping adds none). The vectorised time is the median of several full
 ``simulate_chains`` calls (checks, set-up, pre-roll and output included). The baseline is the
-same step written as plain Python loops over chains and links with the ``math`` module, timed
-on the time loop alone (its set-up is borrowed from the solver), on the first BASELINE_FRAMES
-frames and scaled to 250 frames; it is also checked to give the same motion.
+same model written as plain Python loops over chains and links with the ``math`` module on
+Python floats (inputs converted to nested lists first: reading numpy elements one by one made
+an earlier version of this loop 2.4x slower, which flattered the ratio). It is timed on the
+first BASELINE_FRAMES frames (its set-up included) and scaled to 250 frames; it is also
+checked to give the same motion.
 
 Run: ``python bench/bench_solver.py`` (prints the numbers; copy them into docs/performance.md).
 """
@@ -70,22 +72,24 @@ def baseline(chains, settings, n_frames):
     br = prep["body_response"][:, 0, 0].tolist()
     out = np.empty((n_frames, N_CHAINS, N_LINKS, 3))
     out[0] = d0
-    targets = prep["targets"]
-    # (T-1, 3, C*N) rows -> (T-1, C, N, 3), for plain indexing
-    toward, spin = (np.moveaxis(prep[k].reshape(n_frames - 1, 3, N_CHAINS, N_LINKS), 1, -1) for k in ("toward", "spin"))
-    ang = prep["ang"].reshape(n_frames - 1, N_CHAINS, N_LINKS)
-    a_piv = prep["anchor_acc"]
+    # Nested lists of Python floats (element access on numpy arrays would slow the loop down):
+    # (T-1, 3, C*N) rows -> [frame][chain][link][component].
+    targets = prep["targets"].tolist()
+    toward, spin = (np.moveaxis(prep[k].reshape(n_frames - 1, 3, N_CHAINS, N_LINKS), 1, -1).tolist()
+                    for k in ("toward", "spin"))
+    ang = prep["ang"].reshape(n_frames - 1, N_CHAINS, N_LINKS).tolist()
+    a_piv = prep["anchor_acc"].tolist()
     for f in range(n_frames - 1):
         for j in range(n_sub):
             s = (j + 0.5) / n_sub
             for c in range(N_CHAINS):
-                a = [a_piv[f, c, x] + s * (a_piv[f + 1, c, x] - a_piv[f, c, x]) for x in range(3)]
+                a = [a_piv[f][c][x] + s * (a_piv[f + 1][c][x] - a_piv[f][c][x]) for x in range(3)]
                 felt = [fconst[c][x] - br[c] * a[x] for x in range(3)]
                 carried = [0.0, 0.0, 0.0]
                 for i in range(N_LINKS):
                     di, ui, ai = d[c][i], u[c][i], acc[c][i]
-                    th = ang[f, c, i] * s
-                    tgt = [targets[f, c, i, x] * math.cos(th) + toward[f, c, i, x] * math.sin(th) for x in range(3)]
+                    th = ang[f][c][i] * s
+                    tgt = [targets[f][c][i][x] * math.cos(th) + toward[f][c][i][x] * math.sin(th) for x in range(3)]
                     uu = ui[0] ** 2 + ui[1] ** 2 + ui[2] ** 2
                     par = [length[c][i] * (ai[x] - uu * di[x]) for x in range(3)]
                     fv = [felt[x] - carried[x] for x in range(3)]
@@ -97,7 +101,7 @@ def baseline(chains, settings, n_frames):
                     fp = felt[0] * di[0] + felt[1] * di[1] + felt[2] * di[2]
                     stiff = gain + max(lever[c][i] * fp, 0.0)
                     hden = h / (1.0 + 0.5 * h * damp[c][i] + 0.25 * h * h * stiff)
-                    w = [spin[f, c, i, x] * share[c][i] for x in range(3)]
+                    w = [spin[f][c][i][x] * share[c][i] for x in range(3)]
                     ref = [w[1] * di[2] - w[2] * di[1], w[2] * di[0] - w[0] * di[2], w[0] * di[1] - w[1] * di[0]]
                     dd = damp[c][i] + 0.5 * h * stiff
                     un = [ui[x] + hden * (load[x] - dd * (ui[x] - ref[x])) for x in range(3)]
@@ -143,6 +147,38 @@ def main():
     print(f"speed-up            : {base_ms / vec_ms:8.1f} x   (goal >= 30 x)")
     print(f"under 41 ms         : {'yes' if vec_ms < 41.0 else 'no'}")
     print(f"same motion         : max |difference| of directions {same:.2e}")
+    # What the time loop is made of: sequential sub-steps of a few dozen small numpy calls each.
+    kernel_us, call_us = kernel_cost(chains, settings)
+    n_steps = (N_FRAMES - 1) * motion.substeps
+    print(f"kernel per sub-step : {kernel_us:8.2f} us  ({n_steps} sequential sub-steps -> {kernel_us * n_steps / 1e3:.1f} ms); "
+          f"one multiply of two (3, {N_CHAINS * N_LINKS}) arrays: {call_us:.2f} us")
+    print(f"30 x would need     : {base_ms / 30.0:8.1f} ms in all, {base_ms / 30.0 / n_steps * 1e3:.1f} us per sub-step")
+
+
+def kernel_cost(chains, settings):
+    """Median time of one sub-step of the vectorised kernel, and of one elementary numpy call."""
+    from overlap_assist.core.chain_solver import _Kernel
+
+    prep = prepare(chains, settings, GRAVITY, 1.0 / FPS, None, None)
+    kernel = _Kernel(prep, 1.0 / FPS / prep["n_sub"])
+    m = N_CHAINS * N_LINKS
+    rng = np.random.default_rng(1)
+    d = rng.normal(size=(3, m))
+    d /= np.sqrt((d * d).sum(0))
+    u = 0.1 * rng.normal(size=(3, m))
+    rate_change, rows, pair = np.zeros((3, m)), rng.normal(size=(5, 3, m)), np.empty((2, 3, m))
+    a, b = rng.normal(size=(3, m)), rng.normal(size=(3, m))
+
+    def per_call_us(fn, n=2000):
+        runs = []
+        for _ in range(7):
+            t0 = time.perf_counter()
+            for _ in range(n):
+                fn()
+            runs.append((time.perf_counter() - t0) / n * 1e6)
+        return statistics.median(runs)
+
+    return per_call_us(lambda: kernel.step(d, u, rate_change, rows, pair)), per_call_us(lambda: a * b)
 
 
 if __name__ == "__main__":
