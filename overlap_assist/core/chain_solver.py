@@ -127,6 +127,7 @@ def simulate_chains(
     s_mid = ((np.arange(n_sub) + 0.5) / n_sub)[:, None, None]
     s_end = ((np.arange(n_sub) + 1.0) / n_sub)[:, None, None]
     pair = np.empty((2,) + flat)  # the step's new rate and half turn, side by side
+    broad = _BroadPhase(prep, coll) if coll is not None else None
     step = co.step
     for k0 in range(0, n_frames - 1, _CHUNK_FRAMES):
         # Inputs of every sub-step of a chunk of frames, computed at once (see _Kernel.step).
@@ -155,7 +156,7 @@ def simulate_chains(
                 d, u, rate_change = step(d, u, rate_change, rows_k[j], pair)
                 if limit:
                     d, u = limit_bend(d, u, t_end[i, j], co.cos_lim, co.sin_lim)
-                if coll is not None:
+                if coll is not None and broad.maybe_inside(d, k, float(s_end[j, 0, 0])):
                     s = float(s_end[j, 0, 0])
                     pivot = prep["pivots"][k] + s * (prep["pivots"][k + 1] - prep["pivots"][k])
                     # transpose, not moveaxis: same views, without moveaxis' per-call axis checks
@@ -357,6 +358,65 @@ def limit_bend(d, u, target, cos_lim, sin_lim):
     away = away / np.maximum(np.sqrt(dot(away * away)), _TINY)
     outward = np.maximum(dot(u * away), 0.0) * over
     return d, u - outward * away
+
+
+class _BroadPhase:
+    """A cheap test whether any link end may be inside a collider at a sub-step's end.
+
+    Link ends come from one product with a cumulative-length matrix; spheres are tested as they
+    are, capsules by a bounding sphere (half the longest axis + radius), the ground as a plane;
+    all inflated by each link's thickness. Only when something may be inside does the exact
+    projection (``colliders.project_out``, several passes) run. The test is conservative: it
+    admits every case the projection would treat (it has no surface slack).
+    """
+
+    def __init__(self, prep: dict, coll: Colliders):
+        n_chains, n_links = prep["n_chains"], prep["n_links"]
+        m = n_chains * n_links
+        length = prep["lengths_active"]
+        self.pivots = np.repeat(prep["pivots"].transpose(0, 2, 1), n_links, axis=-1)  # (T, 3, M)
+        self.last = self.pivots.shape[0] - 1
+        # reach[i, j] = length of link i if it is link j or above it in the same chain.
+        block = np.triu(np.ones((n_links, n_links)))[None] * length[:, :, None]
+        self.dense = m <= _DENSE_TRANSFER_MAX
+        if self.dense:
+            reach = np.zeros((m, m))
+            for c in range(n_chains):
+                sl = slice(c * n_links, (c + 1) * n_links)
+                reach[sl, sl] = block[c]
+            self.reach = reach
+        else:
+            self.reach = block
+        self.chain_shape = (3, n_chains, 1, n_links)
+        thick = np.repeat(prep["link_radius"][:, 0], n_links)  # (M,)
+        centres = [np.zeros((self.last + 1, 0, 3))]
+        radii = [np.zeros(0)]
+        if coll.sphere_radii_m.size:
+            centres.append(coll.sphere_centres_m)
+            radii.append(coll.sphere_radii_m)
+        if coll.capsule_radii_m.size:
+            centres.append(0.5 * (coll.capsule_a_m + coll.capsule_b_m))
+            half = 0.5 * np.linalg.norm(coll.capsule_b_m - coll.capsule_a_m, axis=-1).max(axis=0)
+            radii.append(half + coll.capsule_radii_m)
+        self.centres = np.concatenate(centres, axis=1).transpose(0, 2, 1)[..., None]  # (T, 3, B, 1)
+        self.reach_sq = (np.concatenate(radii)[:, None] + thick) ** 2  # (B, M)
+        self.any_bounds = self.reach_sq.shape[0] > 0
+        self.plane = None if coll.ground_height_m is None else coll.ground_height_m + thick
+
+    def maybe_inside(self, d: np.ndarray, k: int, s: float) -> bool:
+        k1 = min(k + 1, self.last)
+        pivot = self.pivots[k] + s * (self.pivots[k1] - self.pivots[k])
+        if self.dense:
+            tips = pivot + np.dot(d, self.reach)
+        else:
+            tips = pivot + (d.reshape(self.chain_shape) @ self.reach).reshape(d.shape)
+        if self.plane is not None and bool(np.any(tips[2] < self.plane)):
+            return True
+        if self.any_bounds:
+            centre = self.centres[k] + s * (self.centres[k1] - self.centres[k])  # (3, B, 1)
+            rel = tips[:, None, :] - centre  # (3, B, M)
+            return bool(np.any((rel * rel).sum(axis=0) < self.reach_sq))
+        return False
 
 
 def _collide(prep, coll, pivot, k, s, d, u):
