@@ -5,6 +5,7 @@ layers → strips → channelbags. Everything here goes through slots and channe
 on 4.5 to 5.3, and assigns slots explicitly (an unmatched slot silently animates nothing).
 """
 import bpy
+import numpy as np
 
 
 def assigned_slot(id_data):
@@ -70,7 +71,6 @@ def ensure_fcurve(bag, data_path, index=0, group_name=""):
 
 def write_keys(fc, frames, values, interpolation='LINEAR'):
     """Replace all keys of ``fc`` with (frame, value) pairs in one bulk write."""
-    import numpy as np
     fc.keyframe_points.clear()
     n = len(frames)
     fc.keyframe_points.add(n)
@@ -135,7 +135,6 @@ def _enum_value(struct, prop, identifier):
 
 def read_keyframes(fc):
     """All keys of ``fc`` as {attribute: array, shape (n,) or (n, 2)} (see KEYFRAME_ATTRIBUTES)."""
-    import numpy as np
     n = len(fc.keyframe_points)
     out = {}
     for name, dtype, width in KEYFRAME_ATTRIBUTES:
@@ -152,7 +151,6 @@ def write_keyframes(fc, keys):
     ``keys`` keep Blender's defaults. ``fc.update()`` sorts the keys and recomputes only the
     handles of AUTO/AUTO_CLAMPED/VECTOR keys; ALIGNED and FREE handles are kept as written.
     """
-    import numpy as np
     fc.keyframe_points.clear()
     n = len(keys["co"])
     fc.keyframe_points.add(n)
@@ -164,7 +162,6 @@ def write_keyframes(fc, keys):
 
 def bezier_keys(key_frames, key_values, handle_left, handle_right, handle_type="ALIGNED"):
     """{attribute: array} for Bézier keys with explicit handles of one type (for write_keyframes)."""
-    import numpy as np
     n = len(key_frames)
     kp = bpy.types.Keyframe
     handle = _enum_value(kp, "handle_left_type", handle_type)
@@ -176,3 +173,63 @@ def bezier_keys(key_frames, key_values, handle_left, handle_right, handle_type="
         "handle_left_type": np.full(n, handle),
         "handle_right_type": np.full(n, handle),
     }
+
+
+def new_fcurves(bag, channels):
+    """Create F-curves in an empty channelbag: ``channels`` is a list of (data_path, index, group_name).
+
+    5.x takes the group by keyword (one call per curve); 4.5 has no such keyword, so the group is
+    created once and assigned. Returns the F-curves in the order given.
+    """
+    out, groups = [], {}
+    new = bag.fcurves.new
+    use_keyword = True
+    for path, index, group_name in channels:
+        fc = None
+        if use_keyword and group_name:
+            try:
+                fc = new(path, index=index, group_name=group_name)
+            except TypeError:   # 4.5: "takes at most 2 arguments"
+                use_keyword = False
+        if fc is None:
+            fc = new(path, index=index)
+            if group_name:
+                group = groups.get(group_name) or bag.groups.get(group_name) or bag.groups.new(group_name)
+                groups[group_name] = group
+                fc.group = group
+        out.append(fc)
+    return out
+
+
+_BEZIER = None
+
+
+def write_bezier_keys(fc, co, handle_left=None, handle_right=None, handle_type='ALIGNED'):
+    """Add Bézier keys to an F-curve that has none, in as few bulk calls as possible.
+
+    ``co``, ``handle_left``, ``handle_right``: float32 C-contiguous arrays (n, 2) of (frame, value).
+    Without handles the keys keep Blender's automatic (AUTO_CLAMPED) handles, computed by
+    ``fc.update()``; with them both handle types are set to ``handle_type`` and kept as written.
+    Interpolation and handle types are written only where the new keys' defaults differ.
+    """
+    global _BEZIER
+    if _BEZIER is None:
+        kp_type = bpy.types.Keyframe
+        _BEZIER = {"BEZIER": _enum_value(kp_type, "interpolation", "BEZIER"),
+                   **{t: _enum_value(kp_type, "handle_left_type", t) for t in ("ALIGNED", "FREE", "AUTO_CLAMPED")}}
+    points = fc.keyframe_points
+    n = len(co)
+    points.add(n)
+    points.foreach_set("co", co.ravel())
+    first = points[0]
+    wanted_type = 'AUTO_CLAMPED' if handle_left is None else handle_type
+    if handle_left is not None:
+        points.foreach_set("handle_left", handle_left.ravel())
+        points.foreach_set("handle_right", handle_right.ravel())
+    if first.handle_left_type != wanted_type or first.handle_right_type != wanted_type:
+        types = np.full(n, _BEZIER[wanted_type], dtype=np.int32)
+        points.foreach_set("handle_left_type", types)
+        points.foreach_set("handle_right_type", types)
+    if first.interpolation != 'BEZIER':
+        points.foreach_set("interpolation", np.full(n, _BEZIER["BEZIER"], dtype=np.int32))
+    fc.update()

@@ -30,8 +30,15 @@ the animator can also key it in the NLA editor.
 Rotation modes: QUATERNION offsets are written as they are (w, x, y, z), hemisphere-continuous.
 The six Euler orders get ``euler(animated ∘ offset) - euler(animated)`` per frame, each frame's
 Euler chosen nearest the previous one (no ±180° flips), from the animated pose sampled before the
-layer exists. AXIS_ANGLE is refused. A rotation channel that nothing animates is written absolute
+layer exists. AXIS_ANGLE is refused. The animated Euler values
+come from ``FCurve.evaluate`` when plain F-curves of the active action are all that animate the
+channel (:func:`plain_channel_fcurves`), otherwise from evaluating the scene frame by frame.
+A rotation channel that nothing animates is written absolute
 (its static pose ∘ offset, COMBINE over the identity) and its static value restored on removal.
+
+Keys: at tolerance 0 a key on every frame with Blender's automatic (AUTO_CLAMPED) handles (exact
+at every frame, Blender's own shape between frames); above 0 the reduced Bézier keys with ALIGNED
+handles as computed by ``core.key_reduce``.
 
 Limitation: rotation channels keyed on only some of their components, and drivers on baked
 channels (drivers run after the NLA and win), are not handled specially.
@@ -42,10 +49,10 @@ from dataclasses import dataclass
 
 import bpy
 import numpy as np
-from mathutils import Euler, Quaternion
 
+from ..core import rotations
 from ..core.errors import OverlapAssistError
-from ..core.key_reduce import evaluate_keys, reduce_euler_groups, reduce_quaternion_groups
+from ..core.key_reduce import reduce_euler_groups, reduce_quaternion_groups
 from . import anim_data
 
 BAKE_TRACK_NAME = "Overlap Bake"
@@ -158,7 +165,7 @@ def _validate(obj, frames, offsets, tolerance_deg, influence):
 
 
 # ---------------------------------------------------------------------------------------------
-# Rotation math (float64 numpy for quaternions; mathutils for Euler decomposition)
+# Rotation math (float64 numpy; Euler decomposition in core.rotations)
 # ---------------------------------------------------------------------------------------------
 
 def _qmul(a, b):
@@ -181,33 +188,82 @@ def compose_euler(basis, order, offsets):
 
     Parameters
     ----------
-    basis : ndarray, shape (n, 3), animated Euler angles (rad) in ``order``
+    basis : ndarray, shape (..., n, 3), animated Euler angles (rad) in ``order``
     order : one of EULER_ORDERS
-    offsets : ndarray, shape (n, 4), unit quaternions (w, x, y, z)
+    offsets : ndarray, shape (..., n, 4), unit quaternions (w, x, y, z)
 
     Returns
     -------
-    ndarray, shape (n, 3): composed angles; ``composed - basis`` is the continuous Euler offset.
+    ndarray, shape (..., n, 3): composed angles; ``composed - basis`` is the continuous Euler offset.
+    Frame k equals mathutils' ``(Euler(basis_k).to_matrix() @ Quaternion(offset_k).to_matrix())
+    .to_euler(order, Euler(basis_k + previous offset))`` (see core.rotations.compose_euler).
     """
-    out = np.empty_like(basis)
-    prev_offset = np.zeros(3)
-    for k in range(basis.shape[0]):
-        matrix = Euler(basis[k], order).to_matrix() @ Quaternion(offsets[k]).to_matrix()
-        out[k] = matrix.to_euler(order, Euler(basis[k] + prev_offset, order))
-        prev_offset = out[k] - basis[k]
-    return out
+    return rotations.compose_euler(basis, order, offsets)
 
 
 def _rotation_property(pb):
     return "rotation_quaternion" if pb.rotation_mode == 'QUATERNION' else "rotation_euler"
 
 
+def plain_channel_fcurves(obj, scene, names):
+    """{bone: [F-curve or None per component]} for bones whose rotation channel nothing but plain
+    F-curves of the active action animates; bones not listed need the scene evaluated.
+
+    Plain means: the object has an active action with a slot and no NLA tracks, the action at
+    blend Replace and influence 1 (so the F-curve value is the channel value), the scene's time
+    mapping is 1:1, no driver on the channel, and none of its F-curves or their groups is muted.
+    A component without an F-curve keeps its current (static) value.
+    """
+    ad = obj.animation_data
+    if (ad is None or ad.action is None or anim_data.assigned_slot(obj) is None or len(ad.nla_tracks)
+            or ad.action_influence != 1.0 or ad.action_blend_type != 'REPLACE'
+            or scene.render.frame_map_old != scene.render.frame_map_new):
+        return {}
+    bag = anim_data.channelbag_for(ad.action, ad.action_slot)
+    if bag is None:
+        return {}
+    driven = {d.data_path for d in ad.drivers}
+    by_channel = {(fc.data_path, fc.array_index): fc for fc in bag.fcurves}
+    out = {}
+    for name in names:
+        pb = obj.pose.bones[name]
+        prop = _rotation_property(pb)
+        path = pb.path_from_id(prop)
+        fcurves = [by_channel.get((path, i)) for i in range(len(getattr(pb, prop)))]
+        if path in driven or any(fc is not None and (fc.mute or (fc.group is not None and fc.group.mute))
+                                 for fc in fcurves):
+            continue
+        out[name] = fcurves
+    return out
+
+
+def _evaluate_channels(pb, fcurves, frames):
+    """(n, c) values of one bone's rotation channel by FCurve.evaluate (static value where no curve)."""
+    static = np.array(getattr(pb, _rotation_property(pb)), dtype=np.float32)
+    frame_list = [float(f) for f in frames]
+    out = np.empty((len(frame_list), len(fcurves)), dtype=np.float32)
+    for c, fc in enumerate(fcurves):
+        if fc is None:
+            out[:, c] = static[c]
+        else:
+            evaluate = fc.evaluate
+            out[:, c] = [evaluate(f) for f in frame_list]
+    return out
+
+
 def sample_rotations(obj, scene, frames, names, progress=None):
     """Evaluated rotation channel values of bones per frame: {name: (n, 4) quaternion or (n, 3) Euler}.
 
-    Restores the current frame afterwards.
+    Channels animated only by plain F-curves (:func:`plain_channel_fcurves`) are read with
+    ``FCurve.evaluate`` at each frame, the value Blender's animation system gives the channel;
+    the others by setting each frame (restoring the current frame afterwards).
     """
+    plain = plain_channel_fcurves(obj, scene, names)
     pose = obj.pose.bones
+    out = {n: _evaluate_channels(pose[n], plain[n], frames).astype(np.float64) for n in names if n in plain}
+    rest = [n for n in names if n not in plain]
+    if not rest:
+        return out
     n_bones = len(pose)
     index = {pb.name: i for i, pb in enumerate(pose)}
     quats = np.empty((len(frames), n_bones * 4), dtype=np.float32)
@@ -223,8 +279,9 @@ def sample_rotations(obj, scene, frames, names, progress=None):
     finally:
         scene.frame_set(frame_back, subframe=sub_back)
     quats, eulers = quats.reshape(len(frames), n_bones, 4), eulers.reshape(len(frames), n_bones, 3)
-    return {n: (quats if pose[n].rotation_mode == 'QUATERNION' else eulers)[:, index[n]].astype(np.float64)
-            for n in names}
+    out.update({n: (quats if pose[n].rotation_mode == 'QUATERNION' else eulers)[:, index[n]].astype(np.float64)
+                for n in rest})
+    return out
 
 
 # ---------------------------------------------------------------------------------------------
@@ -234,52 +291,92 @@ def sample_rotations(obj, scene, frames, names, progress=None):
 def _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad):
     """Reduce every bone's channel values at once (one batched call per rotation kind).
 
-    Returns ({bone: curves}, max error in radians: rotation angle for quaternions, per channel for Euler).
+    Returns ({bone: curves}, max error in radians: rotation angle for quaternions, per channel for
+    Euler), the error as the reducer measured it (Blender's Bézier rule at every frame).
     """
     out, max_err = {}, 0.0
     quat_names = [n for n in values_by_bone if n in quaternion_bones]
     euler_names = [n for n in values_by_bone if n not in quaternion_bones]
-    if quat_names:
-        stacked = np.stack([values_by_bone[n] for n in quat_names])
-        for name, curves, values in zip(quat_names, reduce_quaternion_groups(frames, stacked, tol_rad), stacked):
-            out[name] = curves
-            q = values / np.linalg.norm(values, axis=1, keepdims=True)
-            a = np.stack([evaluate_keys(c, frames) for c in curves], axis=1)
-            a /= np.linalg.norm(a, axis=1, keepdims=True)
-            b = np.where(np.sum(a * q, axis=1, keepdims=True) < 0.0, -q, q)
-            err = 4.0 * np.arctan2(np.linalg.norm(a - b, axis=1), np.linalg.norm(a + b, axis=1))
-            max_err = max(max_err, float(err.max()))
-    if euler_names:
-        stacked = np.stack([values_by_bone[n] for n in euler_names])
-        for name, curves in zip(euler_names, reduce_euler_groups(frames, stacked, tol_rad)):
-            out[name] = curves
-            max_err = max(max_err, max(c.max_error for c in curves))
+    for names, reduce in ((quat_names, reduce_quaternion_groups), (euler_names, reduce_euler_groups)):
+        if names:
+            curves, errors = reduce(frames, np.stack([values_by_bone[n] for n in names]), tol_rad, with_errors=True)
+            out.update(zip(names, curves))
+            max_err = max(max_err, float(np.max(errors)))
     return {n: out[n] for n in values_by_bone}, max_err
 
 
-def _merge_outside(fc, curve):
-    """Keys of ``fc`` outside the curve's frame range, plus the curve's keys."""
-    new = anim_data.bezier_keys(curve.key_frames, curve.key_values, curve.handle_left, curve.handle_right,
-                                curve.handle_type)
+@dataclass(frozen=True, slots=True)
+class _BoneKeys:
+    """Keys for one bone's rotation channel, components first; handles None = Blender's automatic."""
+
+    co: np.ndarray            # (c, n, 2) float32 (frame, value)
+    handle_left: object       # (c, n, 2) float32 or None
+    handle_right: object
+
+    @property
+    def n_keys(self):
+        return int(self.co.shape[0] * self.co.shape[1])
+
+
+def _keys_from_curves(curves):
+    """_BoneKeys of reduced curves sharing their key frames (ALIGNED handles as written)."""
+    co = np.empty((len(curves), curves[0].n_keys_after, 2), dtype=np.float32)
+    co[:, :, 0] = curves[0].key_frames
+    co[:, :, 1] = [c.key_values for c in curves]
+    return _BoneKeys(co, np.array([c.handle_left for c in curves], dtype=np.float32),
+                     np.array([c.handle_right for c in curves], dtype=np.float32))
+
+
+def _keys_every_frame(frames, values):
+    """_BoneKeys with a key on every frame (values (n, c)) and Blender's automatic handles."""
+    co = np.empty((values.shape[1], len(frames), 2), dtype=np.float32)
+    co[:, :, 0] = frames
+    co[:, :, 1] = values.T
+    return _BoneKeys(co, None, None)
+
+
+def _merge_outside(fc, keys):
+    """Keys of ``fc`` outside the new keys' frame range, plus the new keys (dict for write_keyframes)."""
+    new = keys
     old = anim_data.read_keyframes(fc)
-    keep = (old["co"][:, 0] < curve.key_frames[0] - 1e-4) | (old["co"][:, 0] > curve.key_frames[-1] + 1e-4)
+    first, last = new["co"][0, 0], new["co"][-1, 0]
+    keep = (old["co"][:, 0] < first - 1e-4) | (old["co"][:, 0] > last + 1e-4)
     if not keep.any():
         return new
     return {name: np.concatenate((old[name][keep], np.asarray(new[name], dtype=old[name].dtype)))
             for name in new}
 
 
-def _write_bone(bag, pb, curves, merge):
+def _merge_into_action(bag, pb, keys):
+    """Write one bone's keys into an existing action, keeping its keys outside the new range."""
     path = pb.path_from_id(_rotation_property(pb))
-    for index, curve in enumerate(curves):
+    for index in range(keys.co.shape[0]):
         fc = anim_data.ensure_fcurve(bag, path, index, pb.name)
-        if merge:
-            keys = _merge_outside(fc, curve)
+        co = keys.co[index]
+        if keys.handle_left is None:
+            new = anim_data.bezier_keys(co[:, 0], co[:, 1], co, co, "AUTO_CLAMPED")
         else:
-            keys = anim_data.bezier_keys(curve.key_frames, curve.key_values, curve.handle_left,
-                                         curve.handle_right, curve.handle_type)
-        anim_data.write_keyframes(fc, keys)
-    return sum(c.n_keys_after for c in curves)
+            new = anim_data.bezier_keys(co[:, 0], co[:, 1], keys.handle_left[index], keys.handle_right[index],
+                                        "ALIGNED")
+        anim_data.write_keyframes(fc, _merge_outside(fc, new))
+    return keys.n_keys
+
+
+def _write_new(bag, pose, keys_by_bone):
+    """Write every bone's keys into F-curves created here (the bake action is new and empty)."""
+    channels = []
+    for name, keys in keys_by_bone.items():
+        path = pose[name].path_from_id(_rotation_property(pose[name]))
+        channels.extend((path, index, name) for index in range(keys.co.shape[0]))
+    fcurves = iter(anim_data.new_fcurves(bag, channels))
+    for keys in keys_by_bone.values():
+        for index in range(keys.co.shape[0]):
+            if keys.handle_left is None:
+                anim_data.write_bezier_keys(next(fcurves), keys.co[index])
+            else:
+                anim_data.write_bezier_keys(next(fcurves), keys.co[index], keys.handle_left[index],
+                                            keys.handle_right[index], 'ALIGNED')
+    return sum(k.n_keys for k in keys_by_bone.values())
 
 
 def _set_strip_influence(strip, value, frame):
@@ -334,13 +431,13 @@ def _push_down_base(obj, scene, frames, info):
     return track
 
 
-def _add_layer(obj, frames, per_bone_curves, influence, info):
+def _add_layer(obj, frames, keys_by_bone, influence, info):
     """Create the bake action and its COMBINE track on top. Returns (action, keys written)."""
     ad = obj.animation_data
     act = bpy.data.actions.new(bake_action_name(obj))
     slot = act.slots.new(id_type='OBJECT', name=obj.name)
     bag = anim_data.channelbag_for(act, slot, create=True)
-    keys = sum(_write_bone(bag, obj.pose.bones[n], curves, merge=False) for n, curves in per_bone_curves.items())
+    keys = _write_new(bag, obj.pose.bones, keys_by_bone)
     act[INFO_KEY] = info
     track = ad.nla_tracks.new(prev=ad.nla_tracks[-1] if len(ad.nla_tracks) else None)
     track.name = BAKE_TRACK_NAME
@@ -441,10 +538,9 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     info = {"created_animdata": int(obj.animation_data is None),
             "use_nla": int(obj.animation_data.use_nla) if obj.animation_data else 1, "pushed": 0}
     static = {}
-    values_by_bone, quaternion_bones = {}, set()
-    for i, (name, q_off) in enumerate(offsets.items()):
+    values_by_bone, quaternion_bones, euler_jobs = {}, set(), {}
+    for name, q_off in offsets.items():
         pb = pose[name]
-        is_quat = pb.rotation_mode == 'QUATERNION'
         prop = _rotation_property(pb)
         if name in sampled:
             basis = sampled[name]
@@ -453,20 +549,31 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
         absolute = into_action or pb.path_from_id(prop) not in animated
         if absolute and not into_action:
             static[name] = [float(v) for v in getattr(pb, prop)]
-        if is_quat:
+        if pb.rotation_mode == 'QUATERNION':
             quaternion_bones.add(name)
-            values = _continuous(_qmul(basis, q_off), basis[0]) if absolute else _continuous(q_off, (1, 0, 0, 0))
+            values_by_bone[name] = (_continuous(_qmul(basis, q_off), basis[0]) if absolute
+                                    else _continuous(q_off, (1, 0, 0, 0)))
         else:
-            composed = compose_euler(basis, pb.rotation_mode, q_off)
-            values = composed if absolute else composed - basis
-        values_by_bone[name] = values
-        report(0.5 + 0.2 * (i + 1) / len(offsets))
-    per_bone, max_err = _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad)
+            values_by_bone[name] = None   # keeps the bones' order; filled per Euler order below
+            euler_jobs.setdefault(pb.rotation_mode, []).append((name, basis, q_off, absolute))
+    for order, jobs in euler_jobs.items():   # one batched composition per Euler order
+        bases = np.stack([basis for _n, basis, _q, _a in jobs])
+        composed = compose_euler(bases, order, np.stack([q for _n, _b, q, _a in jobs]))
+        for (name, basis, _q, absolute), angles in zip(jobs, composed):
+            values_by_bone[name] = angles if absolute else angles - basis
+    report(0.7)
+    n_channels = sum(values.shape[1] for values in values_by_bone.values())
+    if tol_rad == 0.0:   # a key on every frame, exact; Blender's automatic handles between frames
+        keys_by_bone = {n: _keys_every_frame(frames, v) for n, v in values_by_bone.items()}
+        max_err = 0.0
+    else:
+        per_bone, max_err = _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad)
+        keys_by_bone = {n: _keys_from_curves(curves) for n, curves in per_bone.items()}
     report(0.9)
-    keys_before = sum(len(c) for c in per_bone.values()) * len(frames)
+    keys_before = n_channels * len(frames)
     if into_action:
         bag = anim_data.active_fcurves(obj, create=True)
-        keys = sum(_write_bone(bag, pose[n], curves, merge=True) for n, curves in per_bone.items())
+        keys = sum(_merge_into_action(bag, pose[n], k) for n, k in keys_by_bone.items())
         action_name = obj.animation_data.action.name
     else:
         if obj.animation_data is None:
@@ -474,7 +581,7 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
         if obj.animation_data.action is not None:
             _push_down_base(obj, scene, frames, info)
         info["static_rotations"] = static
-        act, keys = _add_layer(obj, frames, per_bone, influence, info)
+        act, keys = _add_layer(obj, frames, keys_by_bone, influence, info)
         action_name = act.name
     scene.frame_set(scene.frame_current, subframe=scene.frame_subframe)  # show the result now
     report(1.0)

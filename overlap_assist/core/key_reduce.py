@@ -37,7 +37,7 @@ Mathematics of Computation 51(184):699-706 (the three-point slope weights used b
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -113,6 +113,16 @@ class ReducedCurve:
         for name, arr in arrays.items():
             object.__setattr__(self, name, arr)
 
+    @classmethod
+    def _trusted(cls, key_frames, key_values, handle_left, handle_right, handle_type, n_keys_before, max_error):
+        """Build from read-only float64 arrays already in the documented shapes (no checks, no copies)."""
+        curve = object.__new__(cls)
+        for name, value in (("key_frames", key_frames), ("key_values", key_values), ("handle_left", handle_left),
+                            ("handle_right", handle_right), ("handle_type", handle_type),
+                            ("n_keys_before", n_keys_before), ("max_error", max_error)):
+            object.__setattr__(curve, name, value)
+        return curve
+
     @property
     def n_keys_after(self) -> int:
         """Number of keys written."""
@@ -186,46 +196,57 @@ def evaluate_keys(curve: ReducedCurve, frames) -> np.ndarray:
 
 
 # ---------------------------------------------------------------------------------------------
-# Errors between an evaluated group of channels and the samples, per frame
+# Errors between an evaluated group of channels and the samples, per frame (channels first)
 # ---------------------------------------------------------------------------------------------
 
 def _abs_error(evaluated: np.ndarray, target: np.ndarray) -> np.ndarray:
-    """Largest absolute component error, shape (m, c) -> (m,)."""
+    """Largest absolute component error, shape (c, m) -> (m,)."""
     diff = np.abs(evaluated - target)
-    return diff[:, 0] if diff.shape[1] == 1 else np.max(diff, axis=1)
+    return diff[0] if diff.shape[0] == 1 else np.max(diff, axis=0)
 
 
 def _quaternion_angle_error(evaluated: np.ndarray, target: np.ndarray) -> np.ndarray:
-    """Rotation angle (rad) between normalised evaluated quaternions and unit targets, (m, 4) -> (m,).
+    """Rotation angle (rad) between normalised evaluated quaternions and unit targets, (4, m) -> (m,).
 
     Equals 2 acos(|q_eval/|q_eval| . q|); computed as 4 atan2(|a - b|, |a + b|) with b on a's
-    hemisphere, which keeps full precision for small angles where acos does not.
+    hemisphere, which keeps full precision for small angles where acos does not. Rows are the
+    components, so every operation runs on contiguous (m,) arrays.
     """
-    norm = np.linalg.norm(evaluated, axis=-1, keepdims=True)
-    a = evaluated / np.maximum(norm, 1e-300)
-    sign = np.where(np.sum(a * target, axis=-1, keepdims=True) < 0.0, -1.0, 1.0)
-    b = target * sign
-    return 4.0 * np.arctan2(np.linalg.norm(a - b, axis=-1), np.linalg.norm(a + b, axis=-1))
+    a0, a1, a2, a3 = evaluated
+    inv_norm = 1.0 / np.maximum(np.sqrt(a0 * a0 + a1 * a1 + a2 * a2 + a3 * a3), 1e-300)
+    a0, a1, a2, a3 = a0 * inv_norm, a1 * inv_norm, a2 * inv_norm, a3 * inv_norm
+    b0, b1, b2, b3 = target
+    d0, d1, d2, d3 = a0 - b0, a1 - b1, a2 - b2, a3 - b3
+    s0, s1, s2, s3 = a0 + b0, a1 + b1, a2 + b2, a3 + b3
+    minus = d0 * d0 + d1 * d1 + d2 * d2 + d3 * d3   # |a - b|^2 = 2 - 2 a.b for unit a, b
+    plus = s0 * s0 + s1 * s1 + s2 * s2 + s3 * s3    # |a + b|^2 = 2 + 2 a.b
+    # b on a's hemisphere (a.b >= 0) is the smaller of the two: no sign flip needed.
+    return 4.0 * np.arctan2(np.sqrt(np.minimum(minus, plus)), np.sqrt(np.maximum(minus, plus)))
 
 
 # ---------------------------------------------------------------------------------------------
 # Reduction
 # ---------------------------------------------------------------------------------------------
 
-def _validate(frames, values, tolerance, name: str) -> tuple[np.ndarray, np.ndarray, float]:
+def _check_frames_tolerance(frames, tolerance) -> tuple[np.ndarray, float]:
     frames = np.array(frames, dtype=np.float64)
-    values = np.array(values, dtype=np.float64)
     if frames.ndim != 1 or frames.shape[0] < 1:
         raise InputError(f"frames must be a non-empty 1-D array, got shape {frames.shape}")
     if not np.all(np.isfinite(frames)) or np.any(np.diff(frames) <= 0.0):
         raise InputError("frames must be finite and strictly increasing")
+    tolerance = float(tolerance)
+    if not (np.isfinite(tolerance) and tolerance >= 0.0):
+        raise InputError(f"tolerance must be finite and >= 0, got {tolerance}")
+    return frames, tolerance
+
+
+def _validate(frames, values, tolerance, name: str) -> tuple[np.ndarray, np.ndarray, float]:
+    frames, tolerance = _check_frames_tolerance(frames, tolerance)
+    values = np.array(values, dtype=np.float64)
     if values.shape[1:2] != frames.shape:
         raise InputError(f"{name} has shape {values.shape}; its frame axis must match {frames.shape[0]} frames")
     if not np.all(np.isfinite(values)):
         raise InputError(f"{name} contains NaN or infinite values")
-    tolerance = float(tolerance)
-    if not (np.isfinite(tolerance) and tolerance >= 0.0):
-        raise InputError(f"tolerance must be finite and >= 0, got {tolerance}")
     return frames, values, tolerance
 
 
@@ -245,15 +266,16 @@ def _split_keys(frames, values, slopes, tol_eff, error_fn) -> list[np.ndarray]:
     frames : shape (n,)
     values, slopes : shape (g, n, c), a group of c channels shares its keys
     tol_eff : shape (g,), largest accepted error per group
-    error_fn : (m, c), (m, c) -> (m,) per-frame error
+    error_fn : (c, m), (c, m) -> (m,) per-frame error
 
     Returns
     -------
     list of g int arrays, sorted key frame indices per group (always first and last frame).
     """
     n_groups, n_frames, n_channels = values.shape
-    flat_values = values.reshape(-1, n_channels)
-    flat_slopes = slopes.reshape(-1, n_channels)
+    # Channels first: each channel is one contiguous row over all groups' frames.
+    flat_values = np.ascontiguousarray(values.transpose(2, 0, 1).reshape(n_channels, -1))
+    flat_slopes = np.ascontiguousarray(slopes.transpose(2, 0, 1).reshape(n_channels, -1))
     groups = np.arange(n_groups)
     key_g = [groups, groups]
     key_i = [np.zeros(n_groups, dtype=np.intp), np.full(n_groups, n_frames - 1, dtype=np.intp)]
@@ -264,23 +286,27 @@ def _split_keys(frames, values, slopes, tol_eff, error_fn) -> list[np.ndarray]:
         seg_g, seg_lo, seg_hi, n_inner = seg_g[has_inner], seg_lo[has_inner], seg_hi[has_inner], n_inner[has_inner]
         if not seg_g.size:
             break
-        # Per segment: the Hermite cubic as a polynomial in s = (frame - x0) / h (Horner form).
-        lo_flat, hi_flat = seg_g * n_frames + seg_lo, seg_g * n_frames + seg_hi
-        x0 = frames[seg_lo]
-        h = frames[seg_hi] - x0
-        y0, y1 = flat_values[lo_flat], flat_values[hi_flat]
-        hm0, hm1 = flat_slopes[lo_flat] * h[:, None], flat_slopes[hi_flat] * h[:, None]
-        rise = y1 - y0
-        c2 = 3.0 * rise - 2.0 * hm0 - hm1
-        c3 = hm0 + hm1 - 2.0 * rise
         # Interior frames of all segments, concatenated; sid maps each back to its segment.
         starts = np.concatenate(([0], np.cumsum(n_inner)[:-1]))
         sid = np.repeat(np.arange(seg_g.size), n_inner)
         pos = np.arange(sid.size)
-        idx = (seg_lo + 1 - starts)[sid] + pos
-        s = ((frames[idx] - x0[sid]) / h[sid])[:, None]
-        fitted = y0[sid] + s * (hm0[sid] + s * (c2[sid] + s * c3[sid]))
-        err = error_fn(fitted, flat_values[(lo_flat + 1 - starts)[sid] + pos])
+        idx = (seg_lo + 1 - starts)[sid] + pos              # frame index of each interior frame
+        base = seg_g * n_frames
+        lo_flat, hi_flat = (base + seg_lo)[sid], (base + seg_hi)[sid]
+        x0 = frames[seg_lo]
+        h_seg = frames[seg_hi] - x0
+        h = h_seg[sid]
+        s = (frames[idx] - x0[sid]) / h
+        # Cubic Hermite basis per frame (shared by the channels), slopes scaled by the segment length.
+        one_minus_s = 1.0 - s
+        w00 = (1.0 + 2.0 * s) * one_minus_s * one_minus_s
+        w10 = s * one_minus_s * one_minus_s * h
+        w01 = s * s * (3.0 - 2.0 * s)
+        w11 = s * s * (s - 1.0) * h
+        take = np.take   # np.take along axis 1 gathers several times faster than fancy indexing
+        fitted = (w00 * take(flat_values, lo_flat, axis=1) + w10 * take(flat_slopes, lo_flat, axis=1)
+                  + w01 * take(flat_values, hi_flat, axis=1) + w11 * take(flat_slopes, hi_flat, axis=1))
+        err = error_fn(fitted, take(flat_values, (base + seg_lo + 1 - starts)[sid] + pos, axis=1))
         seg_max = np.maximum.reduceat(err, starts)
         bad = seg_max > tol_eff[seg_g]
         if not bad.any():
@@ -296,59 +322,112 @@ def _split_keys(frames, values, slopes, tol_eff, error_fn) -> list[np.ndarray]:
     return np.split(i_of, np.searchsorted(g_of, np.arange(1, n_groups)))
 
 
-def _build_curve(frames, values, slopes, key_idx) -> tuple[ReducedCurve, np.ndarray]:
-    """One channel (values, slopes shape (n,)) keyed at key_idx, handles at thirds.
+def _build_groups(frames, values, slopes, key_sets, error_fn):
+    """Keys with handles at thirds for every group at once, evaluated at every input frame.
 
-    Returns the curve and its evaluation at ``frames``.
+    Parameters
+    ----------
+    frames : (n,); values, slopes : (g, n, c); key_sets : g sorted int arrays of frame indices
+
+    Returns
+    -------
+    (key_frames (K,), key_values (c, K), handle_left (c, K, 2), handle_right (c, K, 2),
+     starts (g,), counts (g,), channel_error (g, c), group_error (g,)), K the total number of keys;
+    group g owns keys ``starts[g] : starts[g] + counts[g]``. The evaluation is, element by element,
+    the arithmetic of :func:`evaluate_keys` (so the errors equal what it would give).
     """
-    x = frames[key_idx]
-    y = values[key_idx]
-    m = slopes[key_idx]
-    if x.shape[0] > 1:
-        h = np.diff(x)
-        left_dx = np.concatenate(([h[0]], h)) / 3.0   # outer handles mirror the inner ones
-        right_dx = np.concatenate((h, [h[-1]])) / 3.0
-    else:
-        left_dx = right_dx = np.full(1, 1.0 / 3.0)  # lone key: 1/3 frame, irrelevant to evaluation
-    curve = ReducedCurve(
-        key_frames=x,
-        key_values=y,
-        handle_left=np.stack((x - left_dx, y - m * left_dx), axis=1),
-        handle_right=np.stack((x + right_dx, y + m * right_dx), axis=1),
-        handle_type="ALIGNED",
-        n_keys_before=frames.shape[0],
-        max_error=float("nan"),
-    )
-    evaluated = evaluate_keys(curve, frames)
-    return replace(curve, max_error=float(np.max(np.abs(evaluated - values)))), evaluated
-
-
-def _reduce_groups(frames, values, tolerance, margin, error_fn) -> list[list[ReducedCurve]]:
-    """Shared driver: values (g, n, c) -> per group, c curves sharing their key frames."""
     n_groups, n_frames, n_channels = values.shape
-    slopes = _data_slopes(frames, values)
+    counts = np.array([k.shape[0] for k in key_sets], dtype=np.intp)
+    key_i = np.concatenate(key_sets).astype(np.intp)
+    key_g = np.repeat(np.arange(n_groups), counts)
+    starts = np.concatenate(([0], np.cumsum(counts)[:-1])).astype(np.intp)
+    last = starts + counts - 1
+    every_frame = bool(np.all(counts == n_frames))   # a key on every frame: exact by construction
+    target = values.transpose(2, 0, 1).reshape(n_channels, -1)   # (c, g*n)
+    if every_frame:
+        x = np.tile(frames, n_groups)
+        y = np.ascontiguousarray(target)                       # (c, K)
+        m = slopes.transpose(2, 0, 1).reshape(n_channels, -1)
+    else:
+        x = frames[key_i]
+        y = np.ascontiguousarray(values[key_g, key_i].T)
+        m = np.ascontiguousarray(slopes[key_g, key_i].T)
+    # Segment lengths to the next / from the previous key; outer handles mirror the inner ones,
+    # a lone key gets 1/3 frame (irrelevant to evaluation).
+    gap = np.diff(x)
+    h_next = np.concatenate((gap, [1.0]))
+    h_prev = np.concatenate(([1.0], gap))
+    multi = counts > 1
+    h_next[last[multi]] = h_prev[last[multi]]
+    h_prev[starts[multi]] = h_next[starts[multi]]
+    h_next[last[~multi]] = h_prev[starts[~multi]] = 1.0
+    left_dx, right_dx = h_prev / 3.0, h_next / 3.0
+    handle_left = np.empty((n_channels, x.shape[0], 2))
+    handle_right = np.empty((n_channels, x.shape[0], 2))
+    handle_left[:, :, 0] = x - left_dx
+    handle_left[:, :, 1] = y - m * left_dx
+    handle_right[:, :, 0] = x + right_dx
+    handle_right[:, :, 1] = y + m * right_dx
+
+    if every_frame:
+        zeros = np.zeros(n_groups)
+        return x, y, handle_left, handle_right, starts, counts, np.zeros((n_groups, n_channels)), zeros
+    else:
+        # Segment of every (group, frame): the group's last key at or before the frame, but never
+        # its last key (evaluate_keys clips likewise); key frames take the key value exactly.
+        key_flat = key_g * n_frames + key_i
+        query = np.arange(n_groups * n_frames)
+        seg = np.searchsorted(key_flat, query, side="right") - 1
+        on_key = key_flat[seg] == query
+        seg = np.where(seg == last[query // n_frames], seg - 1, seg)
+        nxt = seg + 1
+        h = x[nxt] - x[seg]
+        third = h / 3.0
+        y0, y1 = np.take(y, seg, axis=1), np.take(y, nxt, axis=1)
+        slope_out = (np.take(handle_right[:, :, 1], seg, axis=1) - y0) / third
+        slope_in = (y1 - np.take(handle_left[:, :, 1], nxt, axis=1)) / third
+        s = (frames[query % n_frames] - x[seg]) / h
+        evaluated = _hermite(s, h, y0, slope_out, y1, slope_in)
+        evaluated = np.where(on_key, target, evaluated)
+    channel_error = np.max(np.abs(evaluated - target).reshape(n_channels, n_groups, n_frames), axis=2).T
+    group_error = np.max(error_fn(evaluated, target).reshape(n_groups, n_frames), axis=1)
+    return x, y, handle_left, handle_right, starts, counts, channel_error, group_error
+
+
+def _reduce_groups(frames, values, tolerance, margin, error_fn, slopes=None):
+    """Shared driver: values (g, n, c) -> (per group c curves sharing their key frames, group errors (g,))."""
+    n_groups, n_frames, n_channels = values.shape
+    if slopes is None:
+        slopes = _data_slopes(frames, values)
     all_frames = np.arange(n_frames)
     if tolerance == 0.0:
         key_sets = [all_frames] * n_groups
     else:
-        key_sets = _split_keys(frames, values, slopes, np.maximum(tolerance - margin, 0.0), error_fn)
+        key_sets = list(_split_keys(frames, values, slopes, np.maximum(tolerance - margin, 0.0), error_fn))
+    built = _build_groups(frames, values, slopes, key_sets, error_fn)
+    failed = (built[-1] > tolerance) & (built[5] < n_frames)
+    if failed.any():  # guarantee: not expected to happen, rounding only
+        key_sets = [all_frames if failed[g] else key_sets[g] for g in range(n_groups)]
+        built = _build_groups(frames, values, slopes, key_sets, error_fn)
+    x, y, handle_left, handle_right, starts, counts, channel_error, group_error = built
+    for arr in (x, y, handle_left, handle_right):
+        arr.flags.writeable = False
     result = []
     for g in range(n_groups):
-        keys = key_sets[g]
-        while True:
-            built = [_build_curve(frames, values[g, :, c], slopes[g, :, c], keys) for c in range(n_channels)]
-            evaluated = np.stack([e for _, e in built], axis=1)
-            if keys.shape[0] == n_frames or np.max(error_fn(evaluated, values[g])) <= tolerance:
-                break
-            keys = all_frames  # guarantee: not expected to happen, rounding only
-        result.append([curve for curve, _ in built])
-    return result
+        lo, hi = starts[g], starts[g] + counts[g]
+        key_frames = x[lo:hi]
+        result.append([ReducedCurve._trusted(key_frames, y[c, lo:hi], handle_left[c, lo:hi], handle_right[c, lo:hi],
+                                             "ALIGNED", n_frames, float(channel_error[g, c]))
+                       for c in range(n_channels)])
+    return result, group_error
 
 
-def _float32_margin(frames: np.ndarray, values: np.ndarray) -> np.ndarray:
+def _float32_margin(frames: np.ndarray, values: np.ndarray, slopes: np.ndarray | None = None) -> np.ndarray:
     """Allowance for Blender's float32 evaluation per group, values shape (g, n, c) -> (g,)."""
+    if slopes is None:
+        slopes = _data_slopes(frames, values)
     value_scale = np.max(np.abs(values), axis=(1, 2)) + np.max(np.ptp(values, axis=1), axis=-1)
-    slope_scale = np.max(np.abs(_data_slopes(frames, values)), axis=(1, 2))
+    slope_scale = np.max(np.abs(slopes), axis=(1, 2))
     return FLOAT32_MARGIN_REL * (value_scale + slope_scale * (np.max(np.abs(frames)) + 1.0))
 
 
@@ -383,7 +462,10 @@ def reduce_curves(frames, values, tolerance: float) -> list[ReducedCurve]:
     if values.ndim != 2:
         raise InputError(f"values must have shape (n_curves, n_frames), got {values.shape}")
     grouped = values[:, :, None]
-    return [group[0] for group in _reduce_groups(frames, grouped, tolerance, _float32_margin(frames, grouped), _abs_error)]
+    slopes = _data_slopes(frames, grouped)
+    curves, _errors = _reduce_groups(frames, grouped, tolerance, _float32_margin(frames, grouped, slopes), _abs_error,
+                                     slopes)
+    return [group[0] for group in curves]
 
 
 def reduce_euler_curves(frames, eulers, tolerance_rad: float) -> list[ReducedCurve]:
@@ -406,22 +488,31 @@ def reduce_euler_curves(frames, eulers, tolerance_rad: float) -> list[ReducedCur
     return reduce_euler_groups(frames, eulers[None], tolerance_rad)[0]
 
 
-def reduce_euler_groups(frames, eulers, tolerance_rad: float) -> list[list[ReducedCurve]]:
-    """:func:`reduce_euler_curves` for many rotations at once, eulers shape (n_rotations, n_frames, 3)."""
+def reduce_euler_groups(frames, eulers, tolerance_rad: float, *, with_errors: bool = False):
+    """:func:`reduce_euler_curves` for many rotations at once, eulers shape (n_rotations, n_frames, 3).
+
+    With ``with_errors=True`` returns ``(curves, errors)``, errors shape (n_rotations,): the largest
+    per-axis error of each rotation at the input frames (radians).
+    """
     frames, grouped, tolerance_rad = _validate_groups(frames, eulers, 3, tolerance_rad, "eulers")
-    return _reduce_groups(frames, grouped, tolerance_rad, _float32_margin(frames, grouped), _abs_error)
+    slopes = _data_slopes(frames, grouped)
+    curves, errors = _reduce_groups(frames, grouped, tolerance_rad, _float32_margin(frames, grouped, slopes),
+                                    _abs_error, slopes)
+    return (curves, errors) if with_errors else curves
 
 
 def _validate_groups(frames, values, n_channels, tolerance, name):
     """Checked (frames, values (g, n, c) float64, tolerance) for the grouped entry points."""
-    values = np.asarray(values, dtype=np.float64)
+    frames, tolerance = _check_frames_tolerance(frames, tolerance)
+    values = np.array(values, dtype=np.float64)
     if values.ndim != 3 or values.shape[2] != n_channels:
         raise InputError(f"{name} must have shape (n_rotations, n_frames, {n_channels}), got {values.shape}")
-    groups = []
-    for g in range(values.shape[0]):
-        frames_v, v_t, tolerance = _validate(frames, values[g].T, tolerance, f"{name}.T")
-        groups.append(v_t.T)
-    return frames_v, np.stack(groups), tolerance
+    if values.shape[0] < 1 or values.shape[1] != frames.shape[0]:
+        raise InputError(f"{name} has shape {values.shape}; it needs at least one rotation and "
+                         f"{frames.shape[0]} frames")
+    if not np.all(np.isfinite(values)):
+        raise InputError(f"{name} contains NaN or infinite values")
+    return frames, values, tolerance
 
 
 def reduce_quaternion_curves(frames, quats, tolerance_rad: float) -> list[ReducedCurve]:
@@ -451,7 +542,7 @@ def reduce_quaternion_curves(frames, quats, tolerance_rad: float) -> list[Reduce
     return reduce_quaternion_groups(frames, quats[None], tolerance_rad)[0]
 
 
-def reduce_quaternion_groups(frames, quats, tolerance_rad: float) -> list[list[ReducedCurve]]:
+def reduce_quaternion_groups(frames, quats, tolerance_rad: float, *, with_errors: bool = False):
     """:func:`reduce_quaternion_curves` for many rotations at once (one numpy pass per split level).
 
     Parameters
@@ -459,10 +550,13 @@ def reduce_quaternion_groups(frames, quats, tolerance_rad: float) -> list[list[R
     frames : array_like, shape (n_frames,)
     quats : array_like, shape (n_rotations, n_frames, 4), (w, x, y, z), non-zero
     tolerance_rad : float
+    with_errors : bool
+        Also return each rotation's largest rotation-angle error at the input frames (radians).
 
     Returns
     -------
-    list (per rotation) of 4 ReducedCurve sharing their key frames.
+    list (per rotation) of 4 ReducedCurve sharing their key frames; with ``with_errors`` the tuple
+    ``(curves, errors)``, errors shape (n_rotations,).
     """
     frames, q, tolerance_rad = _validate_groups(frames, quats, 4, tolerance_rad, "quats")
     norm = np.linalg.norm(q, axis=2, keepdims=True)
@@ -471,7 +565,9 @@ def reduce_quaternion_groups(frames, quats, tolerance_rad: float) -> list[list[R
     q = q / norm
     flips = np.concatenate((np.zeros((q.shape[0], 1), bool), np.sum(q[:, 1:] * q[:, :-1], axis=2) < 0.0), axis=1)
     q = q * np.where(np.cumsum(flips, axis=1) % 2 == 1, -1.0, 1.0)[:, :, None]
+    slopes = _data_slopes(frames, q)
     # An error e in each of the 4 components moves the quaternion by at most 2e and the rotation
     # angle by about twice that.
-    margin_rad = 4.0 * _float32_margin(frames, q)
-    return _reduce_groups(frames, q, tolerance_rad, margin_rad, _quaternion_angle_error)
+    margin_rad = 4.0 * _float32_margin(frames, q, slopes)
+    curves, errors = _reduce_groups(frames, q, tolerance_rad, margin_rad, _quaternion_angle_error, slopes)
+    return (curves, errors) if with_errors else curves

@@ -67,3 +67,206 @@ def quat_to_matrix(q: np.ndarray) -> np.ndarray:
         np.stack([2 * (x * y + w * z), 1 - 2 * (x * x + z * z), 2 * (y * z - w * x)], -1),
         np.stack([2 * (x * z - w * y), 2 * (y * z + w * x), 1 - 2 * (x * x + y * y)], -1),
     ], -2)
+
+
+# ---------------------------------------------------------------------------------------------
+# Euler angles in Blender's six rotation orders
+# ---------------------------------------------------------------------------------------------
+# Order 'XYZ' applies X first, then Y, then Z: R = Rz Ry Rx (column vectors). The formulas follow
+# Shoemake K. 1994, "Euler Angle Conversion", Graphics Gems IV, pp. 222-229 (axis permutation
+# (i, j, k) and its parity per order), with two solutions per matrix and the one closest to a
+# previous rotation chosen, as Blender's rotation math does.
+
+EULER_ORDER_AXES = {
+    "XYZ": ((0, 1, 2), False), "XZY": ((0, 2, 1), True), "YXZ": ((1, 0, 2), True),
+    "YZX": ((1, 2, 0), False), "ZXY": ((2, 0, 1), False), "ZYX": ((2, 1, 0), True),
+}
+"""order -> ((i, j, k) axes in application order, odd permutation)."""
+
+# Below this |cos(middle angle)| the first and last axes line up (gimbal lock): the last angle is
+# set to 0. The value is 16 float32 epsilons, the threshold Blender's float32 rotation math uses.
+_GIMBAL_COS = 16.0 * 2.0**-23
+
+
+def euler_to_matrix(angles_rad, order: str) -> np.ndarray:
+    """Rotation matrices (..., 3, 3) from Euler angles (..., 3) (x, y, z in radians) in ``order``."""
+    (i, j, k), odd = EULER_ORDER_AXES[order]
+    a = np.asarray(angles_rad, dtype=float)
+    sign = -1.0 if odd else 1.0
+    ti, tj, th = sign * a[..., i], sign * a[..., j], sign * a[..., k]
+    ci, cj, ch = np.cos(ti), np.cos(tj), np.cos(th)
+    si, sj, sh = np.sin(ti), np.sin(tj), np.sin(th)
+    cc, cs, sc, ss = ci * ch, ci * sh, si * ch, si * sh
+    m = np.empty(a.shape[:-1] + (3, 3))
+    m[..., i, i] = cj * ch
+    m[..., i, j] = sj * sc - cs
+    m[..., i, k] = sj * cc + ss
+    m[..., j, i] = cj * sh
+    m[..., j, j] = sj * ss + cc
+    m[..., j, k] = sj * cs - sc
+    m[..., k, i] = -sj
+    m[..., k, j] = cj * si
+    m[..., k, k] = cj * ci
+    return m
+
+
+def euler_to_quat(angles_rad, order: str) -> np.ndarray:
+    """Unit quaternions (..., 4) (w, x, y, z) of Euler angles (..., 3) in ``order``: q_k ⊗ q_j ⊗ q_i."""
+    return np.moveaxis(_euler_to_quat_cf(np.moveaxis(np.asarray(angles_rad, dtype=float), -1, 0), order), 0, -1)
+
+
+def _euler_to_quat_cf(a, order):
+    """Components first: angles (3, ...) -> quaternion (4, ...)."""
+    (i, j, k), _odd = EULER_ORDER_AXES[order]
+    out = None
+    for axis in (i, j, k):   # each elementary rotation applied after the ones before it
+        half = 0.5 * a[axis]
+        q_axis = [np.cos(half), 0.0, 0.0, 0.0]
+        q_axis[1 + axis] = np.sin(half)
+        out = q_axis if out is None else _quat_mul_cf(q_axis, out)
+    return np.stack(np.broadcast_arrays(*out))
+
+
+def _quat_mul_cf(a, b):
+    """Hamilton product a ⊗ b of component sequences (w, x, y, z) (arrays or scalars)."""
+    aw, ax, ay, az = a
+    bw, bx, by, bz = b
+    return [aw * bw - ax * bx - ay * by - az * bz, aw * bx + ax * bw + ay * bz - az * by,
+            aw * by - ax * bz + ay * bw + az * bx, aw * bz + ax * by - ay * bx + az * bw]
+
+
+def _quat_matrix_element(q, r, c):
+    """Element (row r, column c) of the rotation matrix of unit quaternion components q (4, ...)."""
+    w, v = q[0], (q[1], q[2], q[3])
+    if r == c:
+        o1, o2 = v[(r + 1) % 3], v[(r + 2) % 3]
+        return 1.0 - 2.0 * (o1 * o1 + o2 * o2)
+    t = 3 - r - c   # the third axis
+    sign = 1.0 if (c - r) % 3 == 2 else -1.0   # (r, c) = (0, 2), (1, 0), (2, 1): + w v_t
+    return 2.0 * (v[r] * v[c] + sign * w * v[t])
+
+
+def _matrix_to_euler_pair(m: np.ndarray, order: str) -> tuple[np.ndarray, np.ndarray]:
+    """The two Euler solutions (..., 3) of rotation matrices (..., 3, 3) in ``order``."""
+    element = lambda r, c: m[..., r, c]  # noqa: E731
+    e1, e2 = _euler_pair_cf(element, order)
+    return np.moveaxis(e1, 0, -1), np.moveaxis(e2, 0, -1)
+
+
+def _euler_pair_cf(element, order):
+    """Both Euler solutions, components first (3, ...), from ``element(row, col)`` of the matrices."""
+    (i, j, k), odd = EULER_ORDER_AXES[order]
+    m_ii, m_ji, m_kj, m_kk, m_ki = element(i, i), element(j, i), element(k, j), element(k, k), element(k, i)
+    cy = np.hypot(m_ii, m_ji)
+    e1 = np.empty((3,) + np.shape(cy))
+    e2 = np.empty_like(e1)
+    e1[i] = np.arctan2(m_kj, m_kk)
+    e1[j] = np.arctan2(-m_ki, cy)
+    e1[k] = np.arctan2(m_ji, m_ii)
+    e2[i] = np.arctan2(-m_kj, -m_kk)
+    e2[j] = np.arctan2(-m_ki, -cy)
+    e2[k] = np.arctan2(-m_ji, -m_ii)
+    locked = cy <= _GIMBAL_COS
+    if np.any(locked):
+        e1[i] = np.where(locked, np.arctan2(-element(j, k), element(j, j)), e1[i])
+        e1[k] = np.where(locked, 0.0, e1[k])
+        e2[:] = np.where(locked, e1, e2)
+    if odd:
+        return -e1, -e2
+    return e1, e2
+
+
+def compatible_euler(angles_rad, previous_rad) -> np.ndarray:
+    """Angles (..., 3) moved by whole turns towards ``previous_rad`` (..., 3), component-wise.
+
+    A difference beyond half a turn is reduced by the nearest whole number of turns; then, when one
+    component still differs by more than 3.2 rad while the other two differ by less than 1.6 rad,
+    that component is moved one more turn towards the previous value.
+    """
+    angles = np.moveaxis(np.asarray(angles_rad, dtype=float), -1, 0)
+    previous = np.moveaxis(np.broadcast_to(np.asarray(previous_rad, dtype=float), np.shape(angles_rad)), -1, 0)
+    return np.moveaxis(_compatible_cf(angles, previous), 0, -1)
+
+
+def _compatible_cf(angles, previous):
+    """:func:`compatible_euler`, components first (3, ...); returns a new array."""
+    diff = angles - previous
+    if np.all(np.abs(diff) <= np.pi):   # common case: nothing to move (3.2 > pi, so no rule 2)
+        return angles.copy()
+    turn = 2.0 * np.pi
+    out = np.where(diff > np.pi, angles - np.floor(diff / turn + 0.5) * turn, angles)
+    out = np.where(diff < -np.pi, out + np.floor(-diff / turn + 0.5) * turn, out)
+    diff = out - previous
+    big, small = np.abs(diff) > 3.2, np.abs(diff) < 1.6
+    for c in range(3):
+        move = big[c] & small[(c + 1) % 3] & small[(c + 2) % 3]
+        out[c] += np.where(move, np.where(diff[c] > 0.0, -turn, turn), 0.0)
+    return out
+
+
+def _pick_compatible_cf(e1, e2, compat):
+    """Of two solutions (3, ...), each moved towards ``compat``, the one closer to it (sum of |differences|)."""
+    c1, c2 = _compatible_cf(e1, compat), _compatible_cf(e2, compat)
+    d1 = np.abs(c1[0] - compat[0]) + np.abs(c1[1] - compat[1]) + np.abs(c1[2] - compat[2])
+    d2 = np.abs(c2[0] - compat[0]) + np.abs(c2[1] - compat[1]) + np.abs(c2[2] - compat[2])
+    return np.where(d1 > d2, c2, c1)
+
+
+def matrix_to_euler(m, order: str, compatible_rad=None) -> np.ndarray:
+    """Euler angles (..., 3) of rotation matrices (..., 3, 3) in ``order``.
+
+    Without ``compatible_rad``: the solution with the smaller sum of |angles|. With it (..., 3):
+    each of the two solutions is first moved by whole turns towards it (:func:`compatible_euler`),
+    then the one with the smaller sum of |differences| is returned.
+    """
+    m = np.asarray(m, dtype=float)
+    e1, e2 = _euler_pair_cf(lambda r, c: m[..., r, c], order)
+    if compatible_rad is None:
+        pick2 = np.sum(np.abs(e1), axis=0) > np.sum(np.abs(e2), axis=0)
+        return np.moveaxis(np.where(pick2, e2, e1), 0, -1)
+    compat = np.moveaxis(np.broadcast_to(np.asarray(compatible_rad, dtype=float), m.shape[:-1]), -1, 0)
+    return np.moveaxis(_pick_compatible_cf(e1, e2, compat), 0, -1)
+
+
+def compose_euler(basis_rad, order: str, offsets) -> np.ndarray:
+    """Euler angles of ``basis ∘ offset`` per frame, each nearest the previous frame's.
+
+    Parameters
+    ----------
+    basis_rad : array_like, shape (..., n_frames, 3), animated Euler angles in ``order``
+    order : one of EULER_ORDER_AXES
+    offsets : array_like, shape (..., n_frames, 4), unit quaternions (w, x, y, z)
+
+    Returns
+    -------
+    ndarray, shape (..., n_frames, 3): frame k is ``matrix_to_euler(R(basis_k) R(offset_k), order,
+    basis_k + (composed_{k-1} - basis_{k-1}))``, frame 0 compatible with ``basis_0``; so
+    ``composed - basis`` is a continuous Euler offset.
+
+    The frames depend on each other only through the previous frame's offset. The whole sequence
+    is first solved at once, repeated with the previous pass's offsets until no frame changes
+    (smooth motion: two passes); if that needs more than ``_PARALLEL_PASSES`` passes, the frames
+    from the first still-changing one on are solved one after the other.
+    """
+    basis = np.moveaxis(np.asarray(basis_rad, dtype=float), -1, 0)          # (3, ..., n)
+    offsets = np.moveaxis(np.asarray(offsets, dtype=float), -1, 0)          # (4, ..., n)
+    offsets = offsets / np.sqrt(np.sum(offsets * offsets, axis=0))
+    q = _quat_mul_cf(_euler_to_quat_cf(basis, order), offsets)
+    e1, e2 = _euler_pair_cf(lambda r, c: _quat_matrix_element(q, r, c), order)
+
+    composed = _pick_compatible_cf(e1, e2, basis)   # every frame as if the previous offset were zero
+    for _ in range(_PARALLEL_PASSES):
+        compat = basis.copy()
+        compat[..., 1:] += composed[..., :-1] - basis[..., :-1]
+        new = _pick_compatible_cf(e1, e2, compat)
+        changed = np.any(new != composed, axis=tuple(range(new.ndim - 1)))
+        composed = new
+        if not changed.any():
+            return np.moveaxis(composed, 0, -1)
+    for k in range(int(np.argmax(changed)), basis.shape[-1]):
+        compat = basis[..., k] + (composed[..., k - 1] - basis[..., k - 1] if k else 0.0)
+        composed[..., k] = _pick_compatible_cf(e1[..., k], e2[..., k], compat)
+    return np.moveaxis(composed, 0, -1)
+
+
+_PARALLEL_PASSES = 4

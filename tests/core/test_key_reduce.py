@@ -385,3 +385,64 @@ def test_grouped_reduction_equals_one_rotation_at_a_time():
                 np.testing.assert_array_equal(a.key_frames, b.key_frames)
                 np.testing.assert_array_equal(a.key_values, b.key_values)
                 np.testing.assert_array_equal(a.handle_left, b.handle_left)
+
+
+def _douglas_peucker_hermite(frames, row, tol_eff):
+    """Plain-loop reference (Ramer 1972 / Douglas & Peucker 1973 with Hermite segments, data slopes
+    by numpy.gradient): split the segment at its largest error until every frame is within tol_eff."""
+    slopes = np.gradient(row, frames, edge_order=2)
+    keys, stack = {0, len(frames) - 1}, [(0, len(frames) - 1)]
+    while stack:
+        lo, hi = stack.pop()
+        h = frames[hi] - frames[lo]
+        worst, worst_i = -1.0, -1
+        for i in range(lo + 1, hi):
+            s = (frames[i] - frames[lo]) / h
+            v = ((1 + 2 * s) * (1 - s) ** 2 * row[lo] + s * (1 - s) ** 2 * h * slopes[lo]
+                 + s * s * (3 - 2 * s) * row[hi] + s * s * (s - 1) * h * slopes[hi])
+            if abs(v - row[i]) > worst:
+                worst, worst_i = abs(v - row[i]), i
+        if worst > tol_eff:
+            keys.add(worst_i)
+            stack += [(lo, worst_i), (worst_i, hi)]
+    return sorted(keys)
+
+
+def test_batched_reduction_matches_a_plain_loop_and_reports_evaluate_keys_errors():
+    """All curves are split in one numpy pass per level and evaluated in one pass; the keys must be
+    those of the plain per-curve loop, and max_error exactly max |evaluate_keys - samples|."""
+    rng = np.random.default_rng(11)
+    frames = np.arange(300.0)
+    values = np.stack([damped_landing(300, amplitude_deg=a, frequency_hz=f, zeta=z)
+                       for a, f, z in zip(rng.uniform(5, 40, 8), rng.uniform(0.5, 3, 8), rng.uniform(0.05, 0.4, 8))])
+    tol = np.deg2rad(0.5)
+    curves = reduce_curves(frames, values, tol)
+    for curve, row in zip(curves, values):
+        # tol_eff: the tolerance less the float32 allowance, as documented (FLOAT32_MARGIN_REL).
+        slopes = np.gradient(row, frames, edge_order=2)
+        from overlap_assist.core.key_reduce import FLOAT32_MARGIN_REL
+        margin = FLOAT32_MARGIN_REL * (np.max(np.abs(row)) + np.ptp(row) + np.max(np.abs(slopes)) * (frames[-1] + 1))
+        np.testing.assert_array_equal(curve.key_frames, frames[_douglas_peucker_hermite(frames, row, tol - margin)])
+        assert curve.max_error == np.max(np.abs(evaluate_keys(curve, frames) - row))
+
+
+def test_grouped_errors_are_the_rotation_angle_and_axis_errors():
+    """with_errors: quaternions report the largest rotation angle (scipy Rotation), Euler the largest
+    per-axis error, both of the curves as written (evaluated by scipy's Hermite spline)."""
+    from overlap_assist.core.key_reduce import reduce_euler_groups, reduce_quaternion_groups
+    frames = np.arange(250)
+    quats = np.stack([swinging_quaternions(), swinging_quaternions(flip_signs=True)])
+    tol = np.deg2rad(0.5)
+    curves, errors = reduce_quaternion_groups(frames, quats, tol, with_errors=True)
+    for g in range(2):
+        q_eval = np.stack([reference_spline(c)(frames) for c in curves[g]], axis=1)
+        angle = (Rotation.from_quat(np.roll(q_eval, -1, axis=1)).inv()
+                 * Rotation.from_quat(np.roll(quats[g], -1, axis=1))).magnitude()
+        assert errors[g] <= tol
+        assert abs(errors[g] - angle.max()) < 1e-9
+    eulers = np.stack([np.stack((damped_landing(), 0.5 * damped_landing(), 0.1 * np.sin(frames * 0.05)), axis=1)])
+    curves, errors = reduce_euler_groups(frames, eulers, tol, with_errors=True)
+    worst = max(np.max(np.abs(reference_spline(c)(frames) - eulers[0][:, i])) for i, c in enumerate(curves[0]))
+    assert errors[0] <= tol and abs(errors[0] - worst) < 1e-12
+    _, zero = reduce_euler_groups(frames, eulers, 0.0, with_errors=True)
+    assert np.all(zero == 0.0)
