@@ -1,8 +1,18 @@
-"""Quaternion helpers against scipy.spatial.transform.Rotation (reference library)."""
+"""Quaternion and Euler helpers against scipy.spatial.transform.Rotation (reference library)."""
 import numpy as np
+import pytest
 from scipy.spatial.transform import Rotation
 
-from overlap_assist.core.rotations import quat_from_matrix, quat_multiply, quat_to_matrix
+from overlap_assist.core.rotations import (
+    EULER_ORDER_AXES,
+    compose_euler,
+    euler_to_matrix,
+    euler_to_quat,
+    matrix_to_euler,
+    quat_from_matrix,
+    quat_multiply,
+    quat_to_matrix,
+)
 
 
 def _wxyz(r):
@@ -39,16 +49,6 @@ def test_product_matches_scipy_composition():
 # ---------------------------------------------------------------------------------------------
 # Euler orders (scipy's extrinsic lowercase sequences: 'xyz' applies x first, R = Rz Ry Rx)
 # ---------------------------------------------------------------------------------------------
-
-import pytest  # noqa: E402
-
-from overlap_assist.core.rotations import (  # noqa: E402
-    EULER_ORDER_AXES,
-    compose_euler,
-    euler_to_matrix,
-    euler_to_quat,
-    matrix_to_euler,
-)
 
 ORDERS = tuple(EULER_ORDER_AXES)
 
