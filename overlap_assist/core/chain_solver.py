@@ -107,6 +107,8 @@ def simulate_chains(
     targets, toward = prep["target_rows"], prep["toward"]  # (T, 3, M), (T-1, 3, M)
     # Damper reference: animated angular velocity x the damper's share of damping, (T-1, 3, M).
     spin = prep["spin"] * prep["relative_share"].reshape(-1)
+    # ... in the two component orders the projection product needs: (z, x, y) and (y, z, x).
+    spin_rows = np.stack((spin[:, _I2], spin[:, _I1]), axis=1)  # (T-1, 2, 3, M)
     ang = prep["ang"][:, None]  # (T-1, 1, M)
     # Lever x the felt acceleration at each chain's pivot, per frame (varies linearly within one).
     felt = prep["felt_const"][:, 0] - prep["body_response"][:, 0] * prep["anchor_acc"]  # (T, C, 3)
@@ -129,12 +131,13 @@ def simulate_chains(
     pair = np.empty((2,) + flat)  # the step's new rate and half turn, side by side
     broad = _BroadPhase(prep, coll) if coll is not None else None
     step = co.step
+    buffer = np.empty((min(_CHUNK_FRAMES, max(n_frames - 1, 1)), n_sub, _SLOTS) + flat)  # reused per chunk
     for k0 in range(0, n_frames - 1, _CHUNK_FRAMES):
         # Inputs of every sub-step of a chunk of frames, computed at once (see _Kernel.step).
         k1 = min(k0 + _CHUNK_FRAMES, n_frames - 1)
         a_c = ang[k0:k1, None]  # (K, 1, 1, M)
         t_c, w_c = targets[k0:k1, None], toward[k0:k1, None]  # (K, 1, 3, M)
-        rows = np.empty((k1 - k0, n_sub, _SLOTS) + flat)
+        rows = buffer[:k1 - k0]
         # Animated directions at mid-sub-step (slerp), by turning on in steps of a / n_sub
         # (angle-sum recurrence: two sines and cosines per chunk instead of two per sub-step).
         cos_j, sin_j = np.cos(s_mid[0] * a_c[:, 0]), np.sin(s_mid[0] * a_c[:, 0])  # (K, 1, M)
@@ -142,11 +145,12 @@ def simulate_chains(
         for j in range(n_sub):
             if j:
                 cos_j, sin_j = cos_j * cos_inc - sin_j * sin_inc, sin_j * cos_inc + cos_j * sin_inc
-            rows[:, j, 0] = t_c[:, 0] * cos_j + w_c[:, 0] * sin_j
+            np.multiply(t_c[:, 0], cos_j, out=rows[:, j, 0])
+            rows[:, j, 0] += w_c[:, 0] * sin_j
         g0, g1 = lever_felt[k0:k1, None], lever_felt[k0 + 1:k1 + 1, None]
-        rows[:, :, 1] = g0 + s_mid * (g1 - g0)
-        rows[:, :, 3] = spin[k0:k1, None][:, :, _I2]
-        rows[:, :, 4] = spin[k0:k1, None][:, :, _I1]
+        np.multiply(s_mid, g1 - g0, out=rows[:, :, 1])
+        rows[:, :, 1] += g0
+        rows[:, :, 3:5] = spin_rows[k0:k1, None]
         if limit:
             t_end = t_c * np.cos(s_end * a_c) + w_c * np.sin(s_end * a_c)
         for k in range(k0, k1):
