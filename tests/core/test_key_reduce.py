@@ -446,3 +446,39 @@ def test_grouped_errors_are_the_rotation_angle_and_axis_errors():
     assert errors[0] <= tol and abs(errors[0] - worst) < 1e-12
     _, zero = reduce_euler_groups(frames, eulers, 0.0, with_errors=True)
     assert np.all(zero == 0.0)
+
+
+def test_quaternion_split_measure_is_the_angle_and_picks_the_same_keys():
+    """tan^2(angle / 4) = (|a| - |a.b|) / (|a| + |a.b|) (half-angle identity) is the rotation angle
+    of the acos formula 2 acos(|a.b| / |a|) after 4 atan(sqrt(.)), and splitting on it chooses the
+    same keys as splitting on the angle itself."""
+    from overlap_assist.core import key_reduce as kr
+
+    rng = np.random.default_rng(21)
+    b = rng.normal(size=(4, 2000))
+    b /= np.linalg.norm(b, axis=0)
+    a = (b + rng.normal(scale=rng.uniform(1e-6, 0.5, 2000), size=(4, 2000))) * rng.uniform(0.5, 2.0, 2000)
+    a *= np.where(rng.random(2000) < 0.5, -1.0, 1.0)   # either hemisphere
+    acos_angle = 2.0 * np.arccos(np.clip(np.abs(np.sum(a * b, axis=0)) / np.linalg.norm(a, axis=0), 0.0, 1.0))
+    measured = kr._HALF_TAN_SQ[1](kr._quaternion_half_tan_sq(a, b))
+    np.testing.assert_allclose(measured, acos_angle, rtol=1e-9, atol=1e-7)   # acos loses ~1e-8 near 0
+    # The difference |a| - |a.b| rounds to ~1e-16 of |a| (up to 2 here): ~1e-12 rad of angle at
+    # small angles, against tolerances of 1e-3 rad and more.
+    np.testing.assert_allclose(measured, kr._quaternion_angle_error(a, b), rtol=1e-12, atol=1e-11)
+
+    t = np.arange(240) / 24.0
+    quats = []
+    for k in range(6):
+        ang = rng.uniform(0.1, 0.6) * np.exp(-rng.uniform(0.5, 3) * t) * np.sin(rng.uniform(3, 15) * t + k)
+        axis = rng.normal(size=3)
+        quats.append(np.column_stack([np.cos(ang / 2), np.outer(np.sin(ang / 2), axis / np.linalg.norm(axis))]))
+    quats = np.stack(quats)
+    frames = np.arange(240.0)
+    tol = np.deg2rad(0.5)
+    curves, errors = kr.reduce_quaternion_groups(frames, quats, tol, with_errors=True)
+    slopes = kr._data_slopes(frames, quats)
+    margin = 4.0 * kr._float32_margin(frames, quats, slopes)
+    by_angle, angle_errors = kr._reduce_groups(frames, quats, tol, margin, kr._quaternion_angle_error, slopes)
+    for ours, ref in zip(curves, by_angle):
+        np.testing.assert_array_equal(ours[0].key_frames, ref[0].key_frames)
+    np.testing.assert_allclose(errors, angle_errors, rtol=1e-9)
