@@ -233,3 +233,56 @@ def write_bezier_keys(fc, co, handle_left=None, handle_right=None, handle_type='
     if first.interpolation != 'BEZIER':
         points.foreach_set("interpolation", np.full(n, _BEZIER["BEZIER"], dtype=np.int32))
     fc.update()
+
+
+_SHAPE_ATTRIBUTES = ("co", "handle_left", "handle_right", "handle_left_type", "handle_right_type", "interpolation")
+_EASING_ATTRIBUTES = ("easing", "back", "amplitude", "period")
+_PLAIN_KINDS = ("CONSTANT", "LINEAR", "BEZIER")
+
+
+def sample_fcurves(fcurves, frames):
+    """{F-curve: (n,) float32 values at whole ``frames``} for the given curves that have keys and
+    no modifiers (others are left out: evaluate them one frame at a time).
+
+    Each curve's keys (and extrapolation) are copied into a curve of a temporary action, which
+    Blender turns into one sample per whole frame (``convert_to_samples``: the evaluation of
+    ``FCurve.evaluate``, bit-identical, tested) read back with one ``foreach_get``. Handle types
+    travel with the keys because Blender recomputes automatic handles on the way. The given
+    curves are only read. About half the time of one ``evaluate`` call per frame.
+    """
+    todo = [fc for fc in fcurves if len(fc.keyframe_points) and not len(fc.modifiers)]
+    if not todo:
+        return {}
+    first, last = int(frames[0]), int(frames[-1])
+    pick = np.asarray(frames, dtype=np.int64) - first
+    layout = {name: (dtype, width) for name, dtype, width in KEYFRAME_ATTRIBUTES}
+    plain_kinds = {_enum_value(bpy.types.Keyframe, "interpolation", k) for k in _PLAIN_KINDS}
+    act = bpy.data.actions.new("overlap_sampling")
+    try:
+        slot = act.slots.new(id_type='OBJECT', name="sampling")
+        bag = channelbag_for(act, slot, create=True)
+        out = {}
+        copies = new_fcurves(bag, [("sample", i, "") for i in range(len(todo))])
+        for fc, copy in zip(todo, copies):
+            source, target = fc.keyframe_points, copy.keyframe_points
+            n = len(source)
+            target.add(n)
+            for name in _SHAPE_ATTRIBUTES:
+                dtype, width = layout[name]
+                buf = np.empty(n * width, dtype=dtype)
+                source.foreach_get(name, buf)
+                target.foreach_set(name, buf)
+            if not set(np.unique(buf).tolist()) <= plain_kinds:  # buf: the interpolations; easing ones
+                for name in _EASING_ATTRIBUTES:
+                    dtype, width = layout[name]
+                    buf = np.empty(n * width, dtype=dtype)
+                    source.foreach_get(name, buf)
+                    target.foreach_set(name, buf)
+            copy.extrapolation = fc.extrapolation
+            copy.convert_to_samples(first, last + 1)
+            values = np.empty(2 * (last - first + 1), dtype=np.float32)
+            copy.sampled_points.foreach_get("co", values)
+            out[fc] = values[1::2][pick]
+        return out
+    finally:
+        bpy.data.actions.remove(act)

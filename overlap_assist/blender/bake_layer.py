@@ -237,14 +237,17 @@ def plain_channel_fcurves(obj, scene, names):
     return out
 
 
-def _evaluate_channels(pb, fcurves, frames):
-    """(n, c) values of one bone's rotation channel by FCurve.evaluate (static value where no curve)."""
+def _evaluate_channels(pb, fcurves, frames, sampled=None):
+    """(n, c) values of one bone's rotation channel (static value where no curve): from ``sampled``
+    ({F-curve: values}) where given, else by FCurve.evaluate per frame."""
     static = np.array(getattr(pb, _rotation_property(pb)), dtype=np.float32)
     frame_list = [float(f) for f in frames]
     out = np.empty((len(frame_list), len(fcurves)), dtype=np.float32)
     for c, fc in enumerate(fcurves):
         if fc is None:
             out[:, c] = static[c]
+        elif sampled is not None and fc in sampled:
+            out[:, c] = sampled[fc]
         else:
             evaluate = fc.evaluate
             out[:, c] = [evaluate(f) for f in frame_list]
@@ -254,13 +257,15 @@ def _evaluate_channels(pb, fcurves, frames):
 def sample_rotations(obj, scene, frames, names, progress=None):
     """Evaluated rotation channel values of bones per frame: {name: (n, 4) quaternion or (n, 3) Euler}.
 
-    Channels animated only by plain F-curves (:func:`plain_channel_fcurves`) are read with
-    ``FCurve.evaluate`` at each frame, the value Blender's animation system gives the channel;
-    the others by setting each frame (restoring the current frame afterwards).
+    Channels animated only by plain F-curves (:func:`plain_channel_fcurves`) are read from the
+    curves (``anim_data.sample_fcurves``, or ``FCurve.evaluate`` per frame for curves with
+    modifiers): the value Blender's animation system gives the channel; the others by setting
+    each frame (restoring the current frame afterwards).
     """
     plain = plain_channel_fcurves(obj, scene, names)
     pose = obj.pose.bones
-    out = {n: _evaluate_channels(pose[n], plain[n], frames).astype(np.float64) for n in names if n in plain}
+    sampled = anim_data.sample_fcurves([fc for n in names if n in plain for fc in plain[n] if fc is not None], frames)
+    out = {n: _evaluate_channels(pose[n], plain[n], frames, sampled).astype(np.float64) for n in names if n in plain}
     rest = [n for n in names if n not in plain]
     if not rest:
         return out
