@@ -146,22 +146,33 @@ def _validate(obj, frames, offsets, tolerance_deg, influence):
         raise BakeError(f"Influence must be between 0 and 1, got {influence}")
     if not offsets:
         raise BakeError("Nothing to bake: no bone offsets were given")
-    checked = {}
-    for name, q in offsets.items():
+    names = list(offsets)
+    arrays = []
+    for name in names:
         pb = obj.pose.bones.get(name)
         if pb is None:
             raise BakeError(f"Bone '{name}' is not in {obj.name}: check the chain's bone names")
         if pb.rotation_mode == 'AXIS_ANGLE':
             raise BakeError(f"Bone '{name}' uses Axis Angle rotation, which cannot be layered: set its rotation "
                             "mode to Quaternion or an Euler order (N panel > Bone > Rotation Mode) and bake again")
-        q = np.array(q, dtype=np.float64)
-        if q.shape != (frames.shape[0], 4) or not np.all(np.isfinite(q)):
+        try:
+            q = np.asarray(offsets[name], dtype=np.float64)
+        except (TypeError, ValueError):
+            q = np.zeros(0)
+        if q.shape != (frames.shape[0], 4):
             raise BakeError(f"Offsets of '{name}' must be {frames.shape[0]} finite quaternions, got shape {q.shape}")
-        norm = np.linalg.norm(q, axis=1, keepdims=True)
-        if np.any(norm < 1e-6):
-            raise BakeError(f"Offsets of '{name}' contain a zero quaternion")
-        checked[name] = q / norm
-    return frames, checked
+        arrays.append(q)
+    stacked = np.stack(arrays)  # (bones, frames, 4), a copy: the caller's arrays are never touched
+    finite = np.isfinite(stacked).all(axis=(1, 2))
+    if not finite.all():
+        name = names[int(np.argmin(finite))]
+        raise BakeError(f"Offsets of '{name}' must be {frames.shape[0]} finite quaternions, got NaN or infinite values")
+    norm = np.sqrt(np.sum(stacked * stacked, axis=2, keepdims=True))
+    zero = (norm[:, :, 0] < 1e-6).any(axis=1)
+    if zero.any():
+        raise BakeError(f"Offsets of '{names[int(np.argmax(zero))]}' contain a zero quaternion")
+    stacked /= norm
+    return frames, dict(zip(names, stacked))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -177,10 +188,13 @@ def _qmul(a, b):
 
 
 def _continuous(q, reference):
-    """q (n, 4) with signs flipped so q[0]·reference >= 0 and consecutive rows share a hemisphere."""
-    first = -1.0 if np.dot(q[0], reference) < 0.0 else 1.0
-    flips = np.concatenate(([0], np.sum(q[1:] * q[:-1], axis=1) < 0.0))
-    return q * (first * np.where(np.cumsum(flips) % 2 == 1, -1.0, 1.0))[:, None]
+    """q (..., n, 4) with signs flipped so q[..., 0, :]·reference >= 0 and consecutive rows share a
+    hemisphere; reference (..., 4)."""
+    q = np.asarray(q)
+    first = np.where(np.sum(q[..., 0, :] * reference, axis=-1) < 0.0, -1.0, 1.0)  # (...)
+    flips = np.sum(q[..., 1:, :] * q[..., :-1, :], axis=-1) < 0.0
+    odd = np.concatenate((np.zeros(flips.shape[:-1] + (1,), dtype=np.int64), np.cumsum(flips, axis=-1)), axis=-1) % 2
+    return q * (first[..., None] * np.where(odd == 1, -1.0, 1.0))[..., None]
 
 
 def compose_euler(basis, order, offsets):
@@ -543,24 +557,31 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     info = {"created_animdata": int(obj.animation_data is None),
             "use_nla": int(obj.animation_data.use_nla) if obj.animation_data else 1, "pushed": 0}
     static = {}
-    values_by_bone, quaternion_bones, euler_jobs = {}, set(), {}
+    values_by_bone, quaternion_bones, euler_jobs, layered_quats = {}, set(), {}, []
     for name, q_off in offsets.items():
         pb = pose[name]
         prop = _rotation_property(pb)
+        absolute = into_action or pb.path_from_id(prop) not in animated
+        if absolute and not into_action:
+            static[name] = [float(v) for v in getattr(pb, prop)]
+        if pb.rotation_mode == 'QUATERNION' and not absolute:
+            quaternion_bones.add(name)
+            values_by_bone[name] = None   # filled for all such bones at once below
+            layered_quats.append(name)
+            continue
         if name in sampled:
             basis = sampled[name]
         else:
             basis = np.tile(np.array(getattr(pb, prop), dtype=np.float64), (len(frames), 1))
-        absolute = into_action or pb.path_from_id(prop) not in animated
-        if absolute and not into_action:
-            static[name] = [float(v) for v in getattr(pb, prop)]
         if pb.rotation_mode == 'QUATERNION':
             quaternion_bones.add(name)
-            values_by_bone[name] = (_continuous(_qmul(basis, q_off), basis[0]) if absolute
-                                    else _continuous(q_off, (1, 0, 0, 0)))
+            values_by_bone[name] = _continuous(_qmul(basis, q_off), basis[0])
         else:
             values_by_bone[name] = None   # keeps the bones' order; filled per Euler order below
             euler_jobs.setdefault(pb.rotation_mode, []).append((name, basis, q_off, absolute))
+    if layered_quats:   # offsets as they are on the COMBINE layer, hemisphere-continuous from identity
+        stacked = _continuous(np.stack([offsets[n] for n in layered_quats]), np.array([1.0, 0.0, 0.0, 0.0]))
+        values_by_bone.update(zip(layered_quats, stacked))
     for order, jobs in euler_jobs.items():   # one batched composition per Euler order
         bases = np.stack([basis for _n, basis, _q, _a in jobs])
         composed = compose_euler(bases, order, np.stack([q for _n, _b, q, _a in jobs]))
