@@ -170,7 +170,8 @@ def addon_registered(bpy):
 
 def cmd_analyze(args, out):
     bpy = import_bpy()
-    from .blender.analyze import CAUTION, run_analysis, summary_line
+    from .blender.analyze import run_analysis, summary_line
+    from .core.constants import CAUTION
     from .core.body_analysis import analysis_to_dict
     open_blend(bpy, args.file)
     with addon_registered(bpy):

@@ -2,10 +2,8 @@
 import json
 
 import bpy
-import numpy as np
 
 from ..core.body_analysis import analyse_body, analysis_to_dict
-from ..core.constants import CAUTION  # noqa: F401 - re-exported for the panel and the CLI
 from ..core.errors import OverlapAssistError
 from . import anim_data
 from .selection import armature_poll

@@ -7,7 +7,6 @@ seconds at the core boundary; frames are whole frames of the scene.
 import contextlib
 from dataclasses import dataclass
 
-import bpy
 import numpy as np
 
 from ..core.chain_solver import simulate_chains

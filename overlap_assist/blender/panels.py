@@ -3,7 +3,7 @@ import json
 
 import bpy
 
-from .analyze import CAUTION
+from ..core.constants import CAUTION
 
 
 class OverlapPanelMixin:

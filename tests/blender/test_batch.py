@@ -1,10 +1,9 @@
 """Batch mode: worker processes, one failure does not stop the rest, skips up-to-date outputs,
 never runs embedded scripts."""
 import json
-import os
 import pathlib
+
 import bpy
-import pytest
 from blender_helpers import make_malicious_blend, run_cli
 
 from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
