@@ -135,24 +135,11 @@ def simulate_chains(
     for k0 in range(0, n_frames - 1, _CHUNK_FRAMES):
         # Inputs of every sub-step of a chunk of frames, computed at once (see _Kernel.step).
         k1 = min(k0 + _CHUNK_FRAMES, n_frames - 1)
-        a_c = ang[k0:k1, None]  # (K, 1, 1, M)
-        t_c, w_c = targets[k0:k1, None], toward[k0:k1, None]  # (K, 1, 3, M)
-        rows = buffer[:k1 - k0]
-        # Animated directions at mid-sub-step (slerp), by turning on in steps of a / n_sub
-        # (angle-sum recurrence: two sines and cosines per chunk instead of two per sub-step).
-        cos_j, sin_j = np.cos(s_mid[0] * a_c[:, 0]), np.sin(s_mid[0] * a_c[:, 0])  # (K, 1, M)
-        cos_inc, sin_inc = np.cos(a_c[:, 0] / n_sub), np.sin(a_c[:, 0] / n_sub)
-        for j in range(n_sub):
-            if j:
-                cos_j, sin_j = cos_j * cos_inc - sin_j * sin_inc, sin_j * cos_inc + cos_j * sin_inc
-            np.multiply(t_c[:, 0], cos_j, out=rows[:, j, 0])
-            rows[:, j, 0] += w_c[:, 0] * sin_j
-        g0, g1 = lever_felt[k0:k1, None], lever_felt[k0 + 1:k1 + 1, None]
-        np.multiply(s_mid, g1 - g0, out=rows[:, :, 1])
-        rows[:, :, 1] += g0
-        rows[:, :, 3:5] = spin_rows[k0:k1, None]
-        if limit:
-            t_end = t_c * np.cos(s_end * a_c) + w_c * np.sin(s_end * a_c)
+        rows = _sub_step_inputs(buffer[:k1 - k0], targets[k0:k1], toward[k0:k1], ang[k0:k1],
+                                lever_felt[k0:k1 + 1], spin_rows[k0:k1], s_mid)
+        if limit:  # animated directions at the end of each sub-step: the bend cones' axes
+            a_c = ang[k0:k1, None]  # (K, 1, 1, M)
+            t_end = targets[k0:k1, None] * np.cos(s_end * a_c) + toward[k0:k1, None] * np.sin(s_end * a_c)
         for k in range(k0, k1):
             i = k - k0
             rows_k = rows[i]
@@ -161,15 +148,7 @@ def simulate_chains(
                 if limit:
                     d, u = limit_bend(d, u, t_end[i, j], co.cos_lim, co.sin_lim)
                 if coll is not None and broad.maybe_inside(d, k, float(s_end[j, 0, 0])):
-                    s = float(s_end[j, 0, 0])
-                    pivot = prep["pivots"][k] + s * (prep["pivots"][k + 1] - prep["pivots"][k])
-                    # transpose, not moveaxis: same views, without moveaxis' per-call axis checks
-                    # (they cost more than the collision itself at this size).
-                    d3 = d.reshape(3, n_chains, n_links).transpose(1, 2, 0)
-                    u3 = u.reshape(3, n_chains, n_links).transpose(1, 2, 0)
-                    d3, u3, touched = _collide(prep, coll, pivot, k, s, d3, u3)
-                    d = d3.transpose(2, 0, 1).reshape(flat)
-                    u = u3.transpose(2, 0, 1).reshape(flat)
+                    d, u, touched = _collide_rows(prep, coll, k, float(s_end[j, 0, 0]), d, u)
                     contacts += touched
             out[k + 1] = d
         # The turn keeps |d| = 1 and d . u = 0 exactly but for rounding; wash that out.
@@ -421,6 +400,42 @@ class _BroadPhase:
             rel = tips[:, None, :] - centre  # (3, B, M)
             return bool(np.any((rel * rel).sum(axis=0) < self.reach_sq))
         return False
+
+
+def _sub_step_inputs(rows, targets, toward, ang, lever_felt, spin_rows, s_mid):
+    """Fill ``rows`` (K, n_sub, 5, 3, M) with every sub-step's inputs for K frames (see _SLOTS).
+
+    targets, toward (K, 3, M): animated direction at each frame and the unit tangent it turns
+    along, by ``ang`` (K, 1, M) over the frame; lever_felt (K + 1, 3, M), linear within a frame;
+    spin_rows (K, 2, 3, M); s_mid (n_sub, 1, 1): the sub-steps' mid-points as fractions of a frame.
+    """
+    n_sub = s_mid.shape[0]
+    # Animated directions at mid-sub-step (slerp), by turning on in steps of a / n_sub
+    # (angle-sum recurrence: two sines and cosines per chunk instead of two per sub-step).
+    cos_j, sin_j = np.cos(s_mid[0] * ang), np.sin(s_mid[0] * ang)  # (K, 1, M)
+    cos_inc, sin_inc = np.cos(ang / n_sub), np.sin(ang / n_sub)
+    for j in range(n_sub):
+        if j:
+            cos_j, sin_j = cos_j * cos_inc - sin_j * sin_inc, sin_j * cos_inc + cos_j * sin_inc
+        np.multiply(targets, cos_j, out=rows[:, j, 0])
+        rows[:, j, 0] += toward * sin_j
+    g0, g1 = lever_felt[:-1, None], lever_felt[1:, None]
+    np.multiply(s_mid, g1 - g0, out=rows[:, :, 1])
+    rows[:, :, 1] += g0
+    rows[:, :, 3:5] = spin_rows[:, None]
+    return rows
+
+
+def _collide_rows(prep, coll, k, s, d, u):
+    """``_collide`` at fraction ``s`` of frame k for (3, M) rows; returns d, u (3, M) and touched."""
+    n_chains, n_links = prep["n_chains"], prep["n_links"]
+    pivot = prep["pivots"][k] + s * (prep["pivots"][k + 1] - prep["pivots"][k])
+    # transpose, not moveaxis: same views, without moveaxis' per-call axis checks
+    # (they cost more than the collision itself at this size).
+    d3 = d.reshape(3, n_chains, n_links).transpose(1, 2, 0)
+    u3 = u.reshape(3, n_chains, n_links).transpose(1, 2, 0)
+    d3, u3, touched = _collide(prep, coll, pivot, k, s, d3, u3)
+    return d3.transpose(2, 0, 1).reshape(d.shape), u3.transpose(2, 0, 1).reshape(u.shape), touched
 
 
 def _collide(prep, coll, pivot, k, s, d, u):
