@@ -98,3 +98,42 @@ def test_a_bake_cancelled_while_sampling_changes_nothing(rig):
         while True:
             next(steps)
     assert done.value.value[0].keys_written > 0 and bake_layer.has_bake(rig)
+
+
+def test_one_undo_step_takes_back_a_whole_bake(rig):
+    """Reference: Blender's own undo. The operator is registered with UNDO, so Blender records
+    one step when it finishes (from Python: the call's undo flag, as a button press does);
+    going back one step removes the layer and restores the pose."""
+    frames = [10, 35, 44]
+    before = _poses(rig, frames)
+    bpy.ops.ed.undo_push(message="before bake")
+    with bpy.context.temp_override(active_object=rig, object=rig):
+        assert bpy.ops.overlap_assist.bake_chains('EXEC_DEFAULT', True) == {'FINISHED'}
+    assert bake_layer.has_bake(rig)
+    if not bpy.ops.ed.undo.poll():
+        pytest.skip("bpy.ops.ed.undo() is unavailable here (no undo step recorded)")
+    bpy.ops.ed.undo()
+    obj = bpy.data.objects["Hero"]
+    assert not bake_layer.has_bake(obj)
+    np.testing.assert_array_equal(_poses(obj, frames), before)
+
+
+def test_write_into_the_action_is_taken_back_by_one_undo_step(rig):
+    """Reference: Blender's own undo; the user's keys come back byte for byte."""
+    base = rig.animation_data.action
+    name = base.name
+    keys = {(fc.data_path, fc.array_index): anim_data.read_keyframes(fc) for fc in anim_data.all_action_fcurves(base)}
+    bpy.ops.ed.undo_push(message="before writing")
+    with bpy.context.temp_override(active_object=rig, object=rig):
+        assert bpy.ops.overlap_assist.bake_chains('EXEC_DEFAULT', True, into_action=True) == {'FINISHED'}
+    written = {(fc.data_path, fc.array_index) for fc in anim_data.all_action_fcurves(bpy.data.actions[name])}
+    assert any(path.startswith('pose.bones["tail') for path, _i in written)
+    if not bpy.ops.ed.undo.poll():
+        pytest.skip("bpy.ops.ed.undo() is unavailable here (no undo step recorded)")
+    bpy.ops.ed.undo()
+    after = {(fc.data_path, fc.array_index): anim_data.read_keyframes(fc)
+             for fc in anim_data.all_action_fcurves(bpy.data.actions[name])}
+    assert after.keys() == keys.keys()
+    for channel, old in keys.items():
+        for attr, values in old.items():
+            np.testing.assert_array_equal(after[channel][attr], values)
