@@ -196,6 +196,27 @@ _DENSE_TRANSFER_MAX = 160
 product; above it, one small product per chain (the dense one grows with the square)."""
 
 
+def _along_chains(blocks: np.ndarray) -> np.ndarray:
+    """Per-chain (C, N, N) matrices as one operator on (3, M) rows (links of a chain consecutive):
+    the block-diagonal (M, M) matrix up to _DENSE_TRANSFER_MAX links, else the blocks themselves."""
+    n_chains, n_links = blocks.shape[:2]
+    if n_chains * n_links > _DENSE_TRANSFER_MAX:
+        return blocks
+    dense = np.zeros((n_chains * n_links,) * 2)
+    for c in range(n_chains):
+        sl = slice(c * n_links, (c + 1) * n_links)
+        dense[sl, sl] = blocks[c]
+    return dense
+
+
+def _times_along_chains(rows: np.ndarray, matrix: np.ndarray) -> np.ndarray:
+    """``rows`` (3, M) times an operator from :func:`_along_chains`."""
+    if matrix.ndim == 2:
+        return np.dot(rows, matrix)
+    n_chains, n_links = matrix.shape[:2]
+    return (rows.reshape(3, n_chains, 1, n_links) @ matrix).reshape(rows.shape)
+
+
 class _Kernel:
     """The step of all links of all chains, with its per-link constants for a sub-step ``h``.
 
@@ -235,16 +256,9 @@ class _Kernel:
         self.sin_lim = rows(prep["sin_lim"])
         # transfer[i, j]: how much of link i's end acceleration (per unit length) reaches the
         # angular acceleration of link j below it in the same chain: length_i x lever_j.
-        block = np.triu(np.ones((n_links, n_links)), 1)[None] * length[:, :, None] * lever[:, None, :]
-        self.dense = m <= _DENSE_TRANSFER_MAX
-        if self.dense:
-            transfer = np.zeros((m, m))
-            for c in range(n_chains):
-                sl = slice(c * n_links, (c + 1) * n_links)
-                transfer[sl, sl] = block[c]
-            self.transfer = transfer
-        else:
-            self.transfer = block  # (C, N, N)
+        self.transfer = _along_chains(np.triu(np.ones((n_links, n_links)), 1)[None]
+                                      * length[:, :, None] * lever[:, None, :])
+        self.dense = self.transfer.ndim == 2
 
         self.step = self._step_function()
 
@@ -254,7 +268,6 @@ class _Kernel:
         npdot, ones33, ones66, project = np.dot, _ONES33, _ONES66, _PROJECT
         subtract, add, multiply, maximum = np.subtract, np.add, np.multiply, np.maximum
         any_drag, dense, drag, transfer = self.any_drag, self.dense, self.drag, self.transfer
-        chain_shape = (3, self.n_chains, 1, self.n_links)
         stacked_pair = (6, self.n_chains * self.n_links)
         stacked, k2, one, two, floor, zero = self.stacked, self.k2, self.one, self.two, self.floor, self.zero
         damp, den, h, half_h, quarter_h, quarter_h2 = (
@@ -288,10 +301,8 @@ class _Kernel:
             end = rate_change - npdot(ones33, u * u) * d
             if any_drag:
                 end = end + drag * u
-            if dense:
-                subtract(rows[1], npdot(end, transfer), out=felt_head)
-            else:
-                subtract(rows[1], (end.reshape(chain_shape) @ transfer).reshape(end.shape), out=felt_head)
+            # (dense: np.dot inline, the common case, without a helper call on the hot path)
+            subtract(rows[1], npdot(end, transfer) if dense else _times_along_chains(end, transfer), out=felt_head)
             proj = npdot(project, (rows * d).reshape(stacked))
             c = proj[0:3]  # cos of the angle to the animated direction
             # Angular acceleration: felt load on the rod + spring toward the animated direction.
@@ -354,23 +365,12 @@ class _BroadPhase:
     """
 
     def __init__(self, prep: dict, coll: Colliders):
-        n_chains, n_links = prep["n_chains"], prep["n_links"]
-        m = n_chains * n_links
+        n_links = prep["n_links"]
         length = prep["lengths_active"]
         self.pivots = np.repeat(prep["pivots"].transpose(0, 2, 1), n_links, axis=-1)  # (T, 3, M)
         self.last = self.pivots.shape[0] - 1
         # reach[i, j] = length of link i if it is link j or above it in the same chain.
-        block = np.triu(np.ones((n_links, n_links)))[None] * length[:, :, None]
-        self.dense = m <= _DENSE_TRANSFER_MAX
-        if self.dense:
-            reach = np.zeros((m, m))
-            for c in range(n_chains):
-                sl = slice(c * n_links, (c + 1) * n_links)
-                reach[sl, sl] = block[c]
-            self.reach = reach
-        else:
-            self.reach = block
-        self.chain_shape = (3, n_chains, 1, n_links)
+        self.reach = _along_chains(np.triu(np.ones((n_links, n_links)))[None] * length[:, :, None])
         thick = np.repeat(prep["link_radius"][:, 0], n_links)  # (M,)
         centres = [np.zeros((self.last + 1, 0, 3))]
         radii = [np.zeros(0)]
@@ -389,10 +389,7 @@ class _BroadPhase:
     def maybe_inside(self, d: np.ndarray, k: int, s: float) -> bool:
         k1 = min(k + 1, self.last)
         pivot = self.pivots[k] + s * (self.pivots[k1] - self.pivots[k])
-        if self.dense:
-            tips = pivot + np.dot(d, self.reach)
-        else:
-            tips = pivot + (d.reshape(self.chain_shape) @ self.reach).reshape(d.shape)
+        tips = pivot + _times_along_chains(d, self.reach)
         if self.plane is not None and bool(np.any(tips[2] < self.plane)):
             return True
         if self.any_bounds:
