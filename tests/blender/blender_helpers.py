@@ -1,4 +1,5 @@
 """Helpers shared by the Blender-side tests (imported by name: pytest puts this folder on sys.path)."""
+import hashlib
 import pathlib
 import subprocess
 import sys
@@ -7,6 +8,20 @@ import textwrap
 import bpy
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
+
+
+def action_digest(action, path_prefix=""):
+    """Hash of every key (co, handles, interpolation, handle types, easing...) of the F-curves of
+    ``action`` whose data path starts with ``path_prefix``: equal digests, byte-identical keys."""
+    from overlap_assist.blender import anim_data
+    h = hashlib.sha256()
+    for fc in sorted(anim_data.all_action_fcurves(action), key=lambda c: (c.data_path, c.array_index)):
+        if not fc.data_path.startswith(path_prefix):
+            continue
+        h.update(fc.data_path.encode() + bytes([fc.array_index]))
+        for name, arr in anim_data.read_keyframes(fc).items():
+            h.update(name.encode() + arr.tobytes())
+    return h.hexdigest()
 
 
 def op(obj, name, **kw):

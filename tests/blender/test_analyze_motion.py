@@ -3,12 +3,12 @@
 The jump is piecewise-constant acceleration (ballistics in flight), keyed every frame; the
 checks are against its exact events (kinematics) and the scene's gravity.
 """
-import hashlib
 import json
 
 import bpy
 import numpy as np
 import pytest
+from blender_helpers import action_digest
 
 from overlap_assist.blender import anim_data
 from overlap_assist.blender.analyze import LOAD_PROPERTY
@@ -18,17 +18,8 @@ from overlap_assist.core.jump_curves import JumpSpec
 
 
 def keys_digest(obj):
-    """Hash of every key and handle of the bone F-curves (the user's animation)."""
-    h = hashlib.sha256()
-    for fc in anim_data.all_action_fcurves(obj.animation_data.action):
-        if not fc.data_path.startswith("pose.bones"):
-            continue
-        n = len(fc.keyframe_points)
-        for attr in ("co", "handle_left", "handle_right"):
-            buf = np.empty(2 * n, dtype=np.float32)
-            fc.keyframe_points.foreach_get(attr, buf)
-            h.update(fc.data_path.encode() + bytes([fc.array_index]) + buf.tobytes())
-    return h.hexdigest()
+    """Hash of every key of the bone F-curves (the user's animation)."""
+    return action_digest(obj.animation_data.action, "pose.bones")
 
 
 def make_scene(fps=24, fps_base=1.0, scale=1.0, spec=JumpSpec(forward_mps=1.0), body="ROOT"):

@@ -3,12 +3,12 @@
 References named beside the checks: Blender's own evaluation (the pose after ``scene.frame_set``,
 ``FCurve.evaluate``) and mathutils for the expected composition animated ∘ offset.
 """
-import hashlib
 import math
 
 import bpy
 import numpy as np
 import pytest
+from blender_helpers import action_digest
 from mathutils import Euler, Matrix, Quaternion
 
 from overlap_assist.blender import anim_data, bake_layer, bake_ops
@@ -88,16 +88,6 @@ def damped_offsets(bones=CHAIN, frames=BAKE_FRAMES, amp_deg=20.0, freq_hz=1.5, z
             q[1::3] *= -1.0   # the same rotations, signs flipped: the writer must make them continuous
         out[bone] = q
     return out
-
-
-def action_digest(action):
-    """Hash of every key (co, handles, interpolation, handle types) of every F-curve of ``action``."""
-    h = hashlib.sha256()
-    for fc in sorted(anim_data.all_action_fcurves(action), key=lambda c: (c.data_path, c.array_index)):
-        h.update(fc.data_path.encode() + bytes([fc.array_index]))
-        for name, arr in anim_data.read_keyframes(fc).items():
-            h.update(name.encode() + arr.tobytes())
-    return h.hexdigest()
 
 
 def assignment(obj):

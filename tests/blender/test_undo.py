@@ -4,13 +4,10 @@ From Python an operator records its undo step only when called with the undo fla
 press does: ``bpy.ops.overlap_assist.<name>('EXEC_DEFAULT', True)``. ``bpy.ops.ed.undo`` polls
 true only once there is a step to go back to.
 """
-import hashlib
-
 import bpy
 import pytest
-from blender_helpers import op, select_bones
+from blender_helpers import action_digest, op, select_bones
 
-from overlap_assist.blender import anim_data
 from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
 from overlap_assist.core.jump_curves import JumpSpec
 
@@ -25,13 +22,7 @@ def file_state():
     """What the operators may change, by names and values (undo reloads data-blocks)."""
     obj, scene = bpy.data.objects[NAME], bpy.context.scene
     s = obj.overlap_assist
-    digest = hashlib.sha256()
-    for action in sorted(bpy.data.actions, key=lambda a: a.name):
-        digest.update(action.name.encode())
-        for fc in sorted(anim_data.all_action_fcurves(action), key=lambda c: (c.data_path, c.array_index)):
-            digest.update(fc.data_path.encode() + bytes([fc.array_index]))
-            for name, arr in anim_data.read_keyframes(fc).items():
-                digest.update(name.encode() + arr.tobytes())
+    actions = [(a.name, action_digest(a)) for a in sorted(bpy.data.actions, key=lambda a: a.name)]
     ad = obj.animation_data
     return {
         "chains": [(c.name, tuple(c.bone_names()), c.preset, round(c.damping_ratio, 6), c.mute) for c in s.chains],
@@ -40,7 +31,7 @@ def file_state():
         "preview_range": (scene.use_preview_range, scene.frame_preview_start, scene.frame_preview_end),
         "summary": s.body.last_summary,
         "tracks": [t.name for t in ad.nla_tracks] if ad else [],
-        "actions": digest.hexdigest(),
+        "actions": actions,
     }
 
 
