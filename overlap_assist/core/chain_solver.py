@@ -128,6 +128,7 @@ def simulate_chains(
     contacts = np.zeros((n_chains, n_links), dtype=np.int64)
     s_mid = ((np.arange(n_sub) + 0.5) / n_sub)[:, None, None]
     s_end = ((np.arange(n_sub) + 1.0) / n_sub)[:, None, None]
+    s_end_list = s_end.ravel().tolist()  # the same fractions as Python floats, for the collider calls
     pair = np.empty((2,) + flat)  # the step's new rate and half turn, side by side
     broad = _BroadPhase(prep, coll) if coll is not None else None
     step = co.step
@@ -147,8 +148,8 @@ def simulate_chains(
                 d, u, rate_change = step(d, u, rate_change, rows_k[j], pair)
                 if limit:
                     d, u = limit_bend(d, u, t_end[i, j], co.cos_lim, co.sin_lim)
-                if coll is not None and broad.maybe_inside(d, k, float(s_end[j, 0, 0])):
-                    d, u, touched = _collide_rows(prep, coll, k, float(s_end[j, 0, 0]), d, u)
+                if coll is not None and broad.maybe_inside(d, k, s_end_list[j]):
+                    d, u, touched = _collide_rows(prep, coll, k, s_end_list[j], d, u)
                     contacts += touched
             out[k + 1] = d
         # The turn keeps |d| = 1 and d . u = 0 exactly but for rounding; wash that out.
