@@ -235,54 +235,39 @@ def write_bezier_keys(fc, co, handle_left=None, handle_right=None, handle_type='
     fc.update()
 
 
-_SHAPE_ATTRIBUTES = ("co", "handle_left", "handle_right", "handle_left_type", "handle_right_type", "interpolation")
-_EASING_ATTRIBUTES = ("easing", "back", "amplitude", "period")
-_PLAIN_KINDS = ("CONSTANT", "LINEAR", "BEZIER")
-
-
 def sample_fcurves(fcurves, frames):
     """{F-curve: (n,) float32 values at whole ``frames``} for the given curves that have keys and
     no modifiers (others are left out: evaluate them one frame at a time).
 
-    Each curve's keys (and extrapolation) are copied into a curve of a temporary action, which
-    Blender turns into one sample per whole frame (``convert_to_samples``: the evaluation of
-    ``FCurve.evaluate``, bit-identical, tested) read back with one ``foreach_get``. Handle types
-    travel with the keys because Blender recomputes automatic handles on the way. The given
-    curves are only read. About half the time of one ``evaluate`` call per frame.
+    Each action holding some of the curves is copied once (``ID.copy``: keys, handles, types,
+    easing, extrapolation, all in C); every wanted curve of the copy is turned into one sample per
+    whole frame by Blender (``convert_to_samples``: the evaluation of ``FCurve.evaluate``,
+    bit-identical, tested) and read back with one ``foreach_get``; the copy is then deleted. The
+    given curves are only read. About a sixth of the time of one ``evaluate`` call per frame.
     """
     todo = [fc for fc in fcurves if len(fc.keyframe_points) and not len(fc.modifiers)]
     if not todo:
         return {}
     first, last = int(frames[0]), int(frames[-1])
     pick = np.asarray(frames, dtype=np.int64) - first
-    layout = {name: (dtype, width) for name, dtype, width in KEYFRAME_ATTRIBUTES}
-    plain_kinds = {_enum_value(bpy.types.Keyframe, "interpolation", k) for k in _PLAIN_KINDS}
-    act = bpy.data.actions.new("overlap_sampling")
-    try:
-        slot = act.slots.new(id_type='OBJECT', name="sampling")
-        bag = channelbag_for(act, slot, create=True)
-        out = {}
-        copies = new_fcurves(bag, [("sample", i, "") for i in range(len(todo))])
-        for fc, copy in zip(todo, copies):
-            source, target = fc.keyframe_points, copy.keyframe_points
-            n = len(source)
-            target.add(n)
-            for name in _SHAPE_ATTRIBUTES:
-                dtype, width = layout[name]
-                buf = np.empty(n * width, dtype=dtype)
-                source.foreach_get(name, buf)
-                target.foreach_set(name, buf)
-            if not set(np.unique(buf).tolist()) <= plain_kinds:  # buf: the interpolations; easing ones
-                for name in _EASING_ATTRIBUTES:
-                    dtype, width = layout[name]
-                    buf = np.empty(n * width, dtype=dtype)
-                    source.foreach_get(name, buf)
-                    target.foreach_set(name, buf)
-            copy.extrapolation = fc.extrapolation
-            copy.convert_to_samples(first, last + 1)
+    by_action = {}
+    for fc in todo:
+        by_action.setdefault(fc.id_data, []).append(fc)
+    out = {}
+    for act, wanted in by_action.items():
+        originals = all_action_fcurves(act)
+        position = {fc.as_pointer(): i for i, fc in enumerate(originals)}
+        copy = act.copy()
+        try:
+            copies = all_action_fcurves(copy)
+            if len(copies) != len(originals):   # copies are made in order; never seen otherwise
+                raise RuntimeError(f"Copy of action '{act.name}' has {len(copies)} F-curves, not {len(originals)}")
             values = np.empty(2 * (last - first + 1), dtype=np.float32)
-            copy.sampled_points.foreach_get("co", values)
-            out[fc] = values[1::2][pick]
-        return out
-    finally:
-        bpy.data.actions.remove(act)
+            for fc in wanted:
+                sampled = copies[position[fc.as_pointer()]]
+                sampled.convert_to_samples(first, last + 1)
+                sampled.sampled_points.foreach_get("co", values)
+                out[fc] = values[1::2][pick]
+        finally:
+            bpy.data.actions.remove(copy)
+    return out

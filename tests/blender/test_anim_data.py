@@ -41,6 +41,9 @@ def test_bulk_sampling_equals_fcurve_evaluate_bit_for_bit():
     curves.append(_curve(bag, 11, [(5.0, 0.75)]))   # a lone key: constant everywhere
     noisy = _curve(bag, 10, keys)
     noisy.modifiers.new('NOISE')
+    other = bpy.data.actions.new("other")   # curves of a second action in the same call
+    other_bag = anim_data.channelbag_for(other, other.slots.new(id_type='OBJECT', name="Other"), create=True)
+    curves.append(_curve(other_bag, 0, [(2.0, 5.0), (8.0, -1.0)], "VECTOR", extrapolation="LINEAR"))
     frames = np.concatenate((np.arange(-3, 12), np.arange(14, 30)))
     counts = [len(fc.keyframe_points) for fc in curves]
 
@@ -50,5 +53,5 @@ def test_bulk_sampling_equals_fcurve_evaluate_bit_for_bit():
     for fc in curves:
         expected = np.array([fc.evaluate(float(f)) for f in frames], dtype=np.float32)
         np.testing.assert_array_equal(sampled[fc], expected)
-    assert not any(a.name.startswith("overlap_sampling") for a in bpy.data.actions)   # temporary action gone
+    assert sorted(a.name for a in bpy.data.actions) == ["curves", "other"]            # temporary copies gone
     assert [len(fc.keyframe_points) for fc in curves] == counts                        # sources untouched
