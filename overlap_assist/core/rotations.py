@@ -153,8 +153,13 @@ def _matrix_to_euler_pair(m: np.ndarray, order: str) -> tuple[np.ndarray, np.nda
     return np.moveaxis(e1, 0, -1), np.moveaxis(e2, 0, -1)
 
 
-def _euler_pair_cf(element, order):
-    """Both Euler solutions, components first (3, ...), from ``element(row, col)`` of the matrices."""
+def _euler_pair_cf(element, order, turn_equivalent=False):
+    """Both Euler solutions, components first (3, ...), from ``element(row, col)`` of the matrices.
+
+    With ``turn_equivalent`` the second solution is given only up to whole turns per component
+    (``(a_i + pi, pi - a_j, a_k + pi)`` of the first, no arctan2), for callers that move both
+    solutions by whole turns towards a reference anyway.
+    """
     (i, j, k), odd = EULER_ORDER_AXES[order]
     m_ii, m_ji, m_kj, m_kk, m_ki = element(i, i), element(j, i), element(k, j), element(k, k), element(k, i)
     cy = np.hypot(m_ii, m_ji)
@@ -163,9 +168,14 @@ def _euler_pair_cf(element, order):
     e1[i] = np.arctan2(m_kj, m_kk)
     e1[j] = np.arctan2(-m_ki, cy)
     e1[k] = np.arctan2(m_ji, m_ii)
-    e2[i] = np.arctan2(-m_kj, -m_kk)
-    e2[j] = np.arctan2(-m_ki, -cy)
-    e2[k] = np.arctan2(-m_ji, -m_ii)
+    if turn_equivalent:   # arctan2(-y, -x) = arctan2(y, x) + pi and arctan2(y, -x) = pi - arctan2(y, x), mod 2 pi
+        e2[i] = e1[i] + np.pi
+        e2[j] = np.pi - e1[j]
+        e2[k] = e1[k] + np.pi
+    else:
+        e2[i] = np.arctan2(-m_kj, -m_kk)
+        e2[j] = np.arctan2(-m_ki, -cy)
+        e2[k] = np.arctan2(-m_ji, -m_ii)
     locked = cy <= _GIMBAL_COS
     if np.any(locked):
         e1[i] = np.where(locked, np.arctan2(-element(j, k), element(j, j)), e1[i])
@@ -176,51 +186,35 @@ def _euler_pair_cf(element, order):
     return e1, e2
 
 
-def compatible_euler(angles_rad, previous_rad) -> np.ndarray:
-    """Angles (..., 3) moved by whole turns towards ``previous_rad`` (..., 3), component-wise.
-
-    A difference beyond half a turn is reduced by the nearest whole number of turns; then, when one
-    component still differs by more than 3.2 rad while the other two differ by less than 1.6 rad,
-    that component is moved one more turn towards the previous value.
-    """
-    angles = np.moveaxis(np.asarray(angles_rad, dtype=float), -1, 0)
-    previous = np.moveaxis(np.broadcast_to(np.asarray(previous_rad, dtype=float), np.shape(angles_rad)), -1, 0)
-    return np.moveaxis(_compatible_cf(angles, previous), 0, -1)
+_TURN = 2.0 * np.pi
 
 
-def _compatible_cf(angles, previous):
-    """:func:`compatible_euler`, components first (3, ...); returns a new array."""
-    diff = angles - previous
-    if np.all(np.abs(diff) <= np.pi):   # common case: nothing to move (3.2 > pi, so no rule 2)
-        return angles.copy()
-    turn = 2.0 * np.pi
-    out = np.where(diff > np.pi, angles - np.floor(diff / turn + 0.5) * turn, angles)
-    out = np.where(diff < -np.pi, out + np.floor(-diff / turn + 0.5) * turn, out)
-    diff = out - previous
-    big, small = np.abs(diff) > 3.2, np.abs(diff) < 1.6
-    for c in range(3):
-        move = big[c] & small[(c + 1) % 3] & small[(c + 2) % 3]
-        out[c] += np.where(move, np.where(diff[c] > 0.0, -turn, turn), 0.0)
-    return out
+def _moved_towards(angles, reference):
+    """``angles`` minus the nearest whole number of turns to ``angles - reference`` (new array).
+
+    The result depends on ``reference`` only through that whole number, so repeating it with a
+    slightly different reference gives the same bits (compose_euler's passes rely on it)."""
+    return angles - np.rint((angles - reference) * (1.0 / _TURN)) * _TURN
 
 
 def _pick_compatible_cf(e1, e2, compat):
-    """Of two solutions (3, ...), each moved towards ``compat``, the one closer to it (sum of |differences|)."""
-    c1, c2 = _compatible_cf(e1, compat), _compatible_cf(e2, compat)
-    d1 = np.abs(c1[0] - compat[0]) + np.abs(c1[1] - compat[1]) + np.abs(c1[2] - compat[2])
-    d2 = np.abs(c2[0] - compat[0]) + np.abs(c2[1] - compat[1]) + np.abs(c2[2] - compat[2])
-    return np.where(d1 > d2, c2, c1)
+    """Of two solutions (3, ...), each moved by whole turns towards ``compat``, the one closer to it
+    (sum of |differences|; the first on a tie)."""
+    c1, c2 = _moved_towards(e1, compat), _moved_towards(e2, compat)
+    far = np.abs(c1 - compat).sum(axis=0) > np.abs(c2 - compat).sum(axis=0)
+    return np.where(far, c2, c1)
 
 
 def matrix_to_euler(m, order: str, compatible_rad=None) -> np.ndarray:
     """Euler angles (..., 3) of rotation matrices (..., 3, 3) in ``order``.
 
     Without ``compatible_rad``: the solution with the smaller sum of |angles|. With it (..., 3):
-    each of the two solutions is first moved by whole turns towards it (:func:`compatible_euler`),
+    each of the two solutions is first moved by whole turns towards it (component-wise, each
+    difference beyond half a turn reduced by the nearest whole number of turns),
     then the one with the smaller sum of |differences| is returned.
     """
     m = np.asarray(m, dtype=float)
-    e1, e2 = _euler_pair_cf(lambda r, c: m[..., r, c], order)
+    e1, e2 = _euler_pair_cf(lambda r, c: m[..., r, c], order, turn_equivalent=compatible_rad is not None)
     if compatible_rad is None:
         pick2 = np.sum(np.abs(e1), axis=0) > np.sum(np.abs(e2), axis=0)
         return np.moveaxis(np.where(pick2, e2, e1), 0, -1)
@@ -252,7 +246,7 @@ def compose_euler(basis_rad, order: str, offsets) -> np.ndarray:
     offsets = np.moveaxis(np.asarray(offsets, dtype=float), -1, 0)          # (4, ..., n)
     offsets = offsets / np.sqrt(np.sum(offsets * offsets, axis=0))
     q = _quat_mul_cf(_euler_to_quat_cf(basis, order), offsets)
-    e1, e2 = _euler_pair_cf(lambda r, c: _quat_matrix_element(q, r, c), order)
+    e1, e2 = _euler_pair_cf(lambda r, c: _quat_matrix_element(q, r, c), order, turn_equivalent=True)
 
     composed = _pick_compatible_cf(e1, e2, basis)   # every frame as if the previous offset were zero
     for _ in range(_PARALLEL_PASSES):
