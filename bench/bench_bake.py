@@ -83,7 +83,7 @@ def time_ours(obj, frames, offsets, tol):
 
 def time_writer(obj, frames, offsets):
     """The key writer alone: every frame's offset keys of all bones into one new action, as the bake
-    writes them (``anim_data.new_fcurves`` + ``write_bezier_keys``: co, both handles, ALIGNED types)."""
+    writes them (``anim_data.new_fcurves`` + ``write_bezier_curves``: co, both handles, ALIGNED types)."""
     times, n_keys = [], 0
     channels = [(obj.pose.bones[name].path_from_id("rotation_quaternion"), c, name) for name in offsets for c in range(4)]
     keys = []
@@ -99,8 +99,7 @@ def time_writer(obj, frames, offsets):
         act = bpy.data.actions.new("writer")
         slot = act.slots.new(id_type='OBJECT', name=obj.name)
         bag = anim_data.channelbag_for(act, slot, create=True)
-        for fc, (co, left, right) in zip(anim_data.new_fcurves(bag, channels), keys):
-            anim_data.write_bezier_keys(fc, co, left, right, 'ALIGNED')
+        anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), *zip(*keys), 'ALIGNED')
         times.append(time.perf_counter() - t0)
         n_keys = sum(len(fc.keyframe_points) for fc in anim_data.all_action_fcurves(act))
         bpy.data.actions.remove(act)

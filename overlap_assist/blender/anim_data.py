@@ -204,35 +204,43 @@ def new_fcurves(bag, channels):
 _BEZIER = None
 
 
-def write_bezier_keys(fc, co, handle_left=None, handle_right=None, handle_type='ALIGNED'):
-    """Add Bézier keys to an F-curve that has none, in as few bulk calls as possible.
+def write_bezier_curves(fcurves, cos, handles_left=None, handles_right=None, handle_type='ALIGNED'):
+    """Add Bézier keys to F-curves that have none, in as few bulk calls as possible.
 
-    ``co``, ``handle_left``, ``handle_right``: float32 C-contiguous arrays (n, 2) of (frame, value).
-    Without handles the keys keep Blender's automatic (AUTO_CLAMPED) handles, computed by
-    ``fc.update()``; with them both handle types are set to ``handle_type`` and kept as written.
-    Interpolation and handle types are written only where the new keys' defaults differ.
+    ``cos[i]``, ``handles_left[i]``, ``handles_right[i]``: float32 C-contiguous arrays (n_i, 2) of
+    (frame, value) for ``fcurves[i]``. A curve without handles (``handles_left`` None, or its
+    entry None) keeps Blender's automatic (AUTO_CLAMPED) handles, computed by ``fc.update()``;
+    with them both handle types are set to ``handle_type`` and kept as written. Interpolation and
+    handle types are written only where the defaults of new keys (read once, on the first curve)
+    differ.
     """
     global _BEZIER
     if _BEZIER is None:
         kp_type = bpy.types.Keyframe
         _BEZIER = {"BEZIER": _enum_value(kp_type, "interpolation", "BEZIER"),
                    **{t: _enum_value(kp_type, "handle_left_type", t) for t in ("ALIGNED", "FREE", "AUTO_CLAMPED")}}
-    points = fc.keyframe_points
-    n = len(co)
-    points.add(n)
-    points.foreach_set("co", co.ravel())
-    first = points[0]
-    wanted_type = 'AUTO_CLAMPED' if handle_left is None else handle_type
-    if handle_left is not None:
-        points.foreach_set("handle_left", handle_left.ravel())
-        points.foreach_set("handle_right", handle_right.ravel())
-    if first.handle_left_type != wanted_type or first.handle_right_type != wanted_type:
-        types = np.full(n, _BEZIER[wanted_type], dtype=np.int32)
-        points.foreach_set("handle_left_type", types)
-        points.foreach_set("handle_right_type", types)
-    if first.interpolation != 'BEZIER':
-        points.foreach_set("interpolation", np.full(n, _BEZIER["BEZIER"], dtype=np.int32))
-    fc.update()
+    defaults = None
+    for i, fc in enumerate(fcurves):
+        co = cos[i]
+        left = handles_left[i] if handles_left is not None else None
+        points = fc.keyframe_points
+        n = len(co)
+        points.add(n)
+        points.foreach_set("co", co.ravel())
+        if defaults is None:
+            first = points[0]
+            defaults = (first.handle_left_type, first.handle_right_type, first.interpolation)
+        wanted_type = 'AUTO_CLAMPED' if left is None else handle_type
+        if left is not None:
+            points.foreach_set("handle_left", left.ravel())
+            points.foreach_set("handle_right", handles_right[i].ravel())
+        if defaults[0] != wanted_type or defaults[1] != wanted_type:
+            types = np.full(n, _BEZIER[wanted_type], dtype=np.int32)
+            points.foreach_set("handle_left_type", types)
+            points.foreach_set("handle_right_type", types)
+        if defaults[2] != 'BEZIER':
+            points.foreach_set("interpolation", np.full(n, _BEZIER["BEZIER"], dtype=np.int32))
+        fc.update()
 
 
 def sample_fcurves(fcurves, frames):

@@ -251,21 +251,23 @@ def plain_channel_fcurves(obj, scene, names):
     return out
 
 
-def _evaluate_channels(pb, fcurves, frames, sampled=None):
-    """(n, c) values of one bone's rotation channel (static value where no curve): from ``sampled``
-    ({F-curve: values}) where given, else by FCurve.evaluate per frame."""
-    static = np.array(getattr(pb, _rotation_property(pb)), dtype=np.float32)
-    frame_list = [float(f) for f in frames]
-    out = np.empty((len(frame_list), len(fcurves)), dtype=np.float32)
+def _evaluate_channels(pb, fcurves, frames, sampled):
+    """(n, c) float64 values of one bone's rotation channel: ``sampled[fc]`` ({F-curve: values})
+    where given, else FCurve.evaluate per frame; a component without a curve keeps its static value."""
+    columns, static, frame_list = [], None, None
     for c, fc in enumerate(fcurves):
-        if fc is None:
-            out[:, c] = static[c]
-        elif sampled is not None and fc in sampled:
-            out[:, c] = sampled[fc]
-        else:
+        if fc is not None and fc in sampled:
+            columns.append(sampled[fc])
+        elif fc is not None:
+            if frame_list is None:
+                frame_list = [float(f) for f in frames]
             evaluate = fc.evaluate
-            out[:, c] = [evaluate(f) for f in frame_list]
-    return out
+            columns.append(np.array([evaluate(f) for f in frame_list], dtype=np.float32))
+        else:
+            if static is None:
+                static = np.array(getattr(pb, _rotation_property(pb)), dtype=np.float32)
+            columns.append(np.full(len(frames), static[c], dtype=np.float32))
+    return np.stack(columns, axis=1).astype(np.float64)
 
 
 def sample_rotations(obj, scene, frames, names, progress=None):
@@ -279,7 +281,7 @@ def sample_rotations(obj, scene, frames, names, progress=None):
     plain = plain_channel_fcurves(obj, scene, names)
     pose = obj.pose.bones
     sampled = anim_data.sample_fcurves([fc for n in names if n in plain for fc in plain[n] if fc is not None], frames)
-    out = {n: _evaluate_channels(pose[n], plain[n], frames, sampled).astype(np.float64) for n in names if n in plain}
+    out = {n: _evaluate_channels(pose[n], plain[n], frames, sampled) for n in names if n in plain}
     rest = [n for n in names if n not in plain]
     if not rest:
         return out
@@ -383,18 +385,14 @@ def _merge_into_action(bag, pb, keys):
 
 def _write_new(bag, pose, keys_by_bone):
     """Write every bone's keys into F-curves created here (the bake action is new and empty)."""
-    channels = []
+    channels, cos, lefts, rights = [], [], [], []
     for name, keys in keys_by_bone.items():
         path = pose[name].path_from_id(_rotation_property(pose[name]))
         channels.extend((path, index, name) for index in range(keys.co.shape[0]))
-    fcurves = iter(anim_data.new_fcurves(bag, channels))
-    for keys in keys_by_bone.values():
-        for index in range(keys.co.shape[0]):
-            if keys.handle_left is None:
-                anim_data.write_bezier_keys(next(fcurves), keys.co[index])
-            else:
-                anim_data.write_bezier_keys(next(fcurves), keys.co[index], keys.handle_left[index],
-                                            keys.handle_right[index], 'ALIGNED')
+        cos.extend(keys.co)
+        lefts.extend(keys.handle_left if keys.handle_left is not None else [None] * keys.co.shape[0])
+        rights.extend(keys.handle_right if keys.handle_right is not None else [None] * keys.co.shape[0])
+    anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), cos, lefts, rights, 'ALIGNED')
     return sum(k.n_keys for k in keys_by_bone.values())
 
 

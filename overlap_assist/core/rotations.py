@@ -116,15 +116,20 @@ def euler_to_quat(angles_rad, order: str) -> np.ndarray:
 
 
 def _euler_to_quat_cf(a, order):
-    """Components first: angles (3, ...) -> quaternion (4, ...)."""
-    (i, j, k), _odd = EULER_ORDER_AXES[order]
-    out = None
-    for axis in (i, j, k):   # each elementary rotation applied after the ones before it
-        half = 0.5 * a[axis]
-        q_axis = [np.cos(half), 0.0, 0.0, 0.0]
-        q_axis[1 + axis] = np.sin(half)
-        out = q_axis if out is None else _quat_mul_cf(q_axis, out)
-    return np.stack(np.broadcast_arrays(*out))
+    """Components first: angles (3, ...) -> quaternion (4, ...), the product q_k ⊗ q_j ⊗ q_i of the
+    three half-angle rotations written out (sigma = +1 for a cyclic order, -1 for an odd one)."""
+    (i, j, k), odd = EULER_ORDER_AXES[order]
+    sigma = -1.0 if odd else 1.0
+    half = 0.5 * a
+    cos, sin = np.cos(half), np.sin(half)
+    ci, cj, ck, si, sj, sk = cos[i], cos[j], cos[k], sin[i], sin[j], sin[k]
+    cc, ss, cs, sc = ci * cj, si * sj, ci * sj, si * cj
+    out = np.empty((4,) + np.shape(ci))
+    out[0] = ck * cc + sigma * (sk * ss)
+    out[1 + i] = ck * sc - sigma * (sk * cs)
+    out[1 + j] = ck * cs + sigma * (sk * sc)
+    out[1 + k] = sk * cc - sigma * (ck * ss)
+    return out
 
 
 def _quat_mul_cf(a, b):
