@@ -30,7 +30,7 @@ sys.path.insert(0, str(pathlib.Path(__file__).resolve().parents[1]))
 from overlap_assist.blender import anim_data, bake_layer  # noqa: E402
 from overlap_assist.blender.demo_scene import build_armature  # noqa: E402
 
-N_CHAINS, CHAIN_LEN, N_FRAMES, RUNS = 10, 5, 250, 3
+N_CHAINS, CHAIN_LEN, N_FRAMES, RUNS = 10, 5, 250, 7   # each timing: one untimed warm-up run, then the median of RUNS
 
 
 def build(mode):
@@ -73,12 +73,12 @@ def build(mode):
 
 def time_ours(obj, frames, offsets, tol):
     times, stats = [], None
-    for _ in range(RUNS):
+    for _ in range(RUNS + 1):
         t0 = time.perf_counter()
         stats = bake_layer.bake_offsets(obj, frames, offsets, tolerance_deg=tol)
         times.append(time.perf_counter() - t0)
         bake_layer.remove_bake(obj)
-    return statistics.median(times), stats
+    return statistics.median(times[1:]), stats
 
 
 def time_writer(obj, frames, offsets):
@@ -94,7 +94,7 @@ def time_writer(obj, frames, offsets):
             left[:, 0] -= 1 / 3
             right[:, 0] += 1 / 3
             keys.append((co, left, right))
-    for _ in range(RUNS):
+    for _ in range(RUNS + 1):
         t0 = time.perf_counter()
         act = bpy.data.actions.new("writer")
         slot = act.slots.new(id_type='OBJECT', name=obj.name)
@@ -103,7 +103,7 @@ def time_writer(obj, frames, offsets):
         times.append(time.perf_counter() - t0)
         n_keys = sum(len(fc.keyframe_points) for fc in anim_data.all_action_fcurves(act))
         bpy.data.actions.remove(act)
-    return statistics.median(times), n_keys
+    return statistics.median(times[1:]), n_keys
 
 
 def time_blender(obj, frames):
@@ -114,7 +114,7 @@ def time_blender(obj, frames):
         do_constraint_clear=False, do_parents_clear=False, do_clean=False, do_location=False,
         do_rotation=True, do_scale=False, do_bbone=False, do_custom_props=False)
     times, n_keys = [], 0
-    for _ in range(RUNS):
+    for _ in range(RUNS + 1):
         t0 = time.perf_counter()
         act = anim_utils.bake_action(obj, action=None, frames=range(int(frames[0]), int(frames[-1]) + 1),
                                      bake_options=opts)
@@ -124,12 +124,12 @@ def time_blender(obj, frames):
         obj.animation_data.action = base
         obj.animation_data.action_slot = slot
         bpy.data.actions.remove(act)
-    return statistics.median(times), n_keys
+    return statistics.median(times[1:]), n_keys
 
 
 def main():
     print(f"Blender {bpy.app.version_string}, Python {sys.version.split()[0]}, numpy {np.__version__}")
-    print(f"{N_CHAINS * CHAIN_LEN} bones x {N_FRAMES} frames, median of {RUNS}")
+    print(f"{N_CHAINS * CHAIN_LEN} bones x {N_FRAMES} frames, median of {RUNS} after a warm-up run")
     for mode in ("QUATERNION", "XYZ"):
         obj, frames, offsets = build(mode)
         t_bl, keys_bl = time_blender(obj, frames)

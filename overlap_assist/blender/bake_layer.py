@@ -536,6 +536,9 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     ------
     BakeError
         On bad input; nothing has been changed then.
+
+    The scene is not evaluated afterwards (the object is tagged): Blender shows the result at its
+    next update; a script reading the pose calls ``view_layer.update()`` or ``scene.frame_set`` first.
     """
     scene = scene or bpy.context.scene
     frames, offsets = _validate(obj, frames, offsets, tolerance_deg, influence)
@@ -607,7 +610,7 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
         info["static_rotations"] = static
         act, keys = _add_layer(obj, frames, keys_by_bone, influence, info)
         action_name = act.name
-    scene.frame_set(scene.frame_current, subframe=scene.frame_subframe)  # show the result now
+    obj.update_tag(refresh={'TIME'})   # re-evaluate its animation at the next depsgraph update
     report(1.0)
     return BakeStats(bones=tuple(offsets), n_frames=len(frames), keys_before=keys_before, keys_written=keys,
                      max_error_deg=float(np.rad2deg(max_err)), action_name=action_name, into_action=into_action)

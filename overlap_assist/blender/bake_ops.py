@@ -129,6 +129,7 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
         return obj, scene, chains, start, end
 
     def _finished(self, obj, n_chains, stats):
+        bpy.context.view_layer.update()   # the baked pose now, also for scripts (no redraw there)
         obj.overlap_assist.last_bake = f"{n_chains} chains: {stats.summary()}"
         self.report({'INFO'}, f"{n_chains} chains, " + stats.summary())
         return {'FINISHED'}

@@ -167,7 +167,7 @@ def _euler_pair_cf(element, order, turn_equivalent=False):
     """
     (i, j, k), odd = EULER_ORDER_AXES[order]
     m_ii, m_ji, m_kj, m_kk, m_ki = element(i, i), element(j, i), element(k, j), element(k, k), element(k, i)
-    cy = np.hypot(m_ii, m_ji)
+    cy = np.sqrt(m_ii * m_ii + m_ji * m_ji)   # entries of a rotation matrix: no overflow; np.hypot is ~6x slower
     e1 = np.empty((3,) + np.shape(cy))
     e2 = np.empty_like(e1)
     e1[i] = np.arctan2(m_kj, m_kk)
@@ -247,9 +247,11 @@ def compose_euler(basis_rad, order: str, offsets) -> np.ndarray:
     (smooth motion: two passes); if that needs more than ``_PARALLEL_PASSES`` passes, the frames
     from the first still-changing one on are solved one after the other.
     """
-    basis = np.moveaxis(np.asarray(basis_rad, dtype=float), -1, 0)          # (3, ..., n)
-    offsets = np.moveaxis(np.asarray(offsets, dtype=float), -1, 0)          # (4, ..., n)
-    offsets = offsets / np.sqrt(np.sum(offsets * offsets, axis=0))
+    # Components first and contiguous: every operation below then runs on contiguous rows.
+    basis = np.ascontiguousarray(np.moveaxis(np.asarray(basis_rad, dtype=float), -1, 0))    # (3, ..., n)
+    offsets = np.ascontiguousarray(np.moveaxis(np.asarray(offsets, dtype=float), -1, 0))    # (4, ..., n)
+    offsets /= np.sqrt(offsets[0] * offsets[0] + offsets[1] * offsets[1] + offsets[2] * offsets[2]
+                       + offsets[3] * offsets[3])
     q = _quat_mul_cf(_euler_to_quat_cf(basis, order), offsets)
     e1, e2 = _euler_pair_cf(lambda r, c: _quat_matrix_element(q, r, c), order, turn_equivalent=True)
 

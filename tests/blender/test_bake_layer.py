@@ -181,6 +181,22 @@ def test_layer_is_animated_pose_times_offset_and_removal_restores(mode):
     assert bake_layer.bake_action_name(obj) not in bpy.data.actions
 
 
+def test_result_shows_at_the_next_update_as_after_frame_set():
+    """The bake does not evaluate the scene itself; the next depsgraph update shows the layer.
+    Reference: Blender's own evaluation after ``scene.frame_set`` on the same frame."""
+    obj = make_rig("XYZ")
+    scene = bpy.context.scene
+    scene.frame_set(30)
+    before = np.array([tuple(pb.matrix_basis.col[c]) for pb in obj.pose.bones for c in range(3)])
+    bake_offsets(obj, BAKE_FRAMES, damped_offsets(), tolerance_deg=0.0)
+    bpy.context.view_layer.update()
+    updated = np.array([tuple(pb.matrix_basis.col[c]) for pb in obj.pose.bones for c in range(3)])
+    scene.frame_set(30)
+    evaluated = np.array([tuple(pb.matrix_basis.col[c]) for pb in obj.pose.bones for c in range(3)])
+    assert np.array_equal(updated, evaluated)
+    assert np.max(np.abs(evaluated - before)) > 0.01   # the layer moved the chain at frame 30
+
+
 def test_no_offset_outside_the_baked_range_and_influence():
     obj = make_rig()
     outside = [5, 75]
