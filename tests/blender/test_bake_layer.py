@@ -466,5 +466,19 @@ def test_driven_or_layered_channels_are_sampled_by_the_scene():
     plain = bake_layer.plain_channel_fcurves(obj, scene, list(CHAIN))
     assert "c1" not in plain and "c0" in plain
     obj.driver_remove('pose.bones["c1"].rotation_euler', 0)
+    bag = anim_data.active_fcurves(obj)
+    curves = {(fc.data_path, fc.array_index): fc for fc in bag.fcurves}
+    curves[('pose.bones["c2"].rotation_euler', 1)].mute = True       # a muted curve
+    curves[('pose.bones["c3"].rotation_euler', 0)].group.mute = True  # a muted group
+    plain = bake_layer.plain_channel_fcurves(obj, scene, list(CHAIN))
+    assert set(plain) == {"c0", "c1"}
+    # Reference: Blender's evaluation of the muted channels (frame_set, read back) equals what the
+    # bake samples for them.
+    sampled = bake_layer.sample_rotations(obj, scene, BAKE_FRAMES[:5], ["c2", "c3"])
+    for k, f in enumerate(BAKE_FRAMES[:5]):
+        scene.frame_set(int(f))
+        for bone in ("c2", "c3"):
+            np.testing.assert_array_equal(sampled[bone][k].astype(np.float32),
+                                          np.array(obj.pose.bones[bone].rotation_euler, dtype=np.float32))
     obj.animation_data.nla_tracks.new()
     assert bake_layer.plain_channel_fcurves(obj, scene, list(CHAIN)) == {}
