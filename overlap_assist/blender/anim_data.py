@@ -258,6 +258,7 @@ def sample_fcurves(fcurves, frames):
         return {}
     first, last = int(frames[0]), int(frames[-1])
     pick = np.asarray(frames, dtype=np.int64) - first
+    every_frame = pick.shape[0] == last - first + 1   # increasing whole frames: all of first..last
     by_action = {}
     for fc in todo:
         by_action.setdefault(fc.id_data, []).append(fc)
@@ -275,7 +276,7 @@ def sample_fcurves(fcurves, frames):
                 sampled = copies[position[fc.as_pointer()]]
                 sampled.convert_to_samples(first, last + 1)
                 sampled.sampled_points.foreach_get("co", values)
-                out[fc] = values[1::2][pick]
+                out[fc] = values[1::2].copy() if every_frame else values[1::2][pick]
         finally:
             bpy.data.actions.remove(copy)
     return out

@@ -356,12 +356,17 @@ def _keys_from_curves(curves):
                      np.array([c.handle_right for c in curves], dtype=np.float32))
 
 
-def _keys_every_frame(frames, values):
-    """_BoneKeys with a key on every frame (values (n, c)) and Blender's automatic handles."""
-    co = np.empty((values.shape[1], len(frames), 2), dtype=np.float32)
-    co[:, :, 0] = frames
-    co[:, :, 1] = values.T
-    return _BoneKeys(co, None, None)
+def _keys_every_frame(frames, values_by_bone):
+    """{bone: _BoneKeys} with a key on every frame (values (n, c) per bone) and Blender's automatic
+    handles; bones with the same number of components share one array."""
+    out = {}
+    for n_components in {v.shape[1] for v in values_by_bone.values()}:
+        names = [n for n, v in values_by_bone.items() if v.shape[1] == n_components]
+        co = np.empty((len(names), n_components, len(frames), 2), dtype=np.float32)
+        co[:, :, :, 0] = frames
+        co[:, :, :, 1] = np.stack([values_by_bone[n] for n in names]).transpose(0, 2, 1)
+        out.update((n, _BoneKeys(co[b], None, None)) for b, n in enumerate(names))
+    return {n: out[n] for n in values_by_bone}
 
 
 def _merge_outside(fc, keys):
@@ -594,12 +599,13 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     for order, jobs in euler_jobs.items():   # one batched composition per Euler order
         bases = np.stack([basis for _n, basis, _q, _a in jobs])
         composed = compose_euler(bases, order, np.stack([q for _n, _b, q, _a in jobs]))
-        for (name, basis, _q, absolute), angles in zip(jobs, composed):
-            values_by_bone[name] = angles if absolute else angles - basis
+        layered = composed - bases
+        for b, (name, _basis, _q, absolute) in enumerate(jobs):
+            values_by_bone[name] = composed[b] if absolute else layered[b]
     report(0.7)
     n_channels = sum(values.shape[1] for values in values_by_bone.values())
     if tol_rad == 0.0:   # a key on every frame, exact; Blender's automatic handles between frames
-        keys_by_bone = {n: _keys_every_frame(frames, v) for n, v in values_by_bone.items()}
+        keys_by_bone = _keys_every_frame(frames, values_by_bone)
         max_err = 0.0
     else:
         per_bone, max_err = _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad)
