@@ -243,6 +243,7 @@ def plain_channel_fcurves(obj, scene, names):
     groups_muted = np.zeros(len(bag.groups), dtype=bool)
     bag.groups.foreach_get("mute", groups_muted)
     by_channel = {(fc.data_path, fc.array_index): (fc, bool(m)) for fc, m in zip(curves, muted)}
+    any_group_muted = bool(groups_muted.any())
     out = {}
     for name in names:
         pb = obj.pose.bones[name]
@@ -252,7 +253,7 @@ def plain_channel_fcurves(obj, scene, names):
         if path in driven or any(m for _fc, m in found):
             continue
         fcurves = [fc for fc, _m in found]
-        if groups_muted.any() and any(fc is not None and fc.group is not None and fc.group.mute for fc in fcurves):
+        if any_group_muted and any(fc is not None and fc.group is not None and fc.group.mute for fc in fcurves):
             continue
         out[name] = fcurves
     return out
