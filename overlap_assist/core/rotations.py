@@ -247,9 +247,28 @@ def compose_euler(basis_rad, order: str, offsets) -> np.ndarray:
     (smooth motion: two passes); if that needs more than ``_PARALLEL_PASSES`` passes, the frames
     from the first still-changing one on are solved one after the other.
     """
+    basis_rad = np.asarray(basis_rad, dtype=float)
+    offsets = np.asarray(offsets, dtype=float)
+    lead, n_frames = basis_rad.shape[:-2], basis_rad.shape[-2]
+    basis_rad, offsets = basis_rad.reshape(-1, n_frames, 3), offsets.reshape(-1, n_frames, 4)
+    out = np.empty(basis_rad.shape)
+    # Sequences in blocks of about _BLOCK_VALUES frames: the temporaries stay small enough for the
+    # allocator to reuse them (large ones are returned to the system and faulted in again on
+    # every operation; measured ~1.5x slower for 50 x 250 frames in one block).
+    block = max(1, _BLOCK_VALUES // max(n_frames, 1))
+    for start in range(0, basis_rad.shape[0], block):
+        out[start:start + block] = _compose_block(basis_rad[start:start + block], order, offsets[start:start + block])
+    return out.reshape(lead + (n_frames, 3))
+
+
+_BLOCK_VALUES = 6000
+
+
+def _compose_block(basis_rad, order, offsets):
+    """:func:`compose_euler` of (b, n, 3) angles and (b, n, 4) offsets."""
     # Components first and contiguous: every operation below then runs on contiguous rows.
-    basis = np.ascontiguousarray(np.moveaxis(np.asarray(basis_rad, dtype=float), -1, 0))    # (3, ..., n)
-    offsets = np.ascontiguousarray(np.moveaxis(np.asarray(offsets, dtype=float), -1, 0))    # (4, ..., n)
+    basis = np.ascontiguousarray(np.moveaxis(basis_rad, -1, 0))    # (3, b, n)
+    offsets = np.moveaxis(offsets, -1, 0).copy()                   # (4, b, n), a copy: normalised in place
     offsets /= np.sqrt(offsets[0] * offsets[0] + offsets[1] * offsets[1] + offsets[2] * offsets[2]
                        + offsets[3] * offsets[3])
     q = _quat_mul_cf(_euler_to_quat_cf(basis, order), offsets)

@@ -116,3 +116,24 @@ def test_compose_euler_sequential_fallback_matches_the_definition():
             ref = matrix_to_euler(target[k], "YZX", basis[b, k] + prev)
             np.testing.assert_allclose(composed[b, k], ref, atol=1e-12)
             prev = ref - basis[b, k]
+
+
+def test_compose_euler_in_blocks_equals_one_sequence_at_a_time_and_leaves_inputs_alone():
+    """Many sequences are composed in blocks (several here); each result equals the composition of
+    that sequence alone, and scipy's R(basis) R(offset); the caller's arrays are not modified."""
+    rng = np.random.default_rng(10)
+    n_seq, n = 31, 400   # more sequences than one block holds at this length
+    t = np.linspace(0.0, 1.0, n)
+    basis = rng.uniform(-3, 3, (n_seq, 1, 3)) + np.sin(np.outer(rng.uniform(1, 4, n_seq), t))[:, :, None]
+    angle = 0.5 * np.exp(-2 * t)[None] * np.sin(np.outer(rng.uniform(10, 30, n_seq), t))
+    axis = rng.normal(size=(n_seq, 1, 3))
+    axis /= np.linalg.norm(axis, axis=2, keepdims=True)
+    offsets = np.concatenate((np.cos(angle / 2)[..., None], np.sin(angle / 2)[..., None] * axis), axis=2) * 1.5
+    basis_copy, offsets_copy = basis.copy(), offsets.copy()
+    composed = compose_euler(basis, "ZXY", offsets)
+    assert np.array_equal(basis, basis_copy) and np.array_equal(offsets, offsets_copy)
+    for b in (0, 14, 15, 30):
+        np.testing.assert_array_equal(composed[b], compose_euler(basis[b], "ZXY", offsets[b]))
+    expected = (Rotation.from_matrix(euler_to_matrix(basis.reshape(-1, 3), "ZXY"))
+                * Rotation.from_quat(np.roll(offsets.reshape(-1, 4), -1, axis=1)))
+    np.testing.assert_allclose(euler_to_matrix(composed.reshape(-1, 3), "ZXY"), expected.as_matrix(), atol=1e-12)
