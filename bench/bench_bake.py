@@ -30,10 +30,11 @@ sys.path.insert(0, str(pathlib.Path(__file__).resolve().parents[1]))
 from overlap_assist.blender import anim_data, bake_layer  # noqa: E402
 from overlap_assist.blender.demo_scene import build_armature  # noqa: E402
 
+SKIN_VERTICES = 20000
 N_CHAINS, CHAIN_LEN, N_FRAMES, RUNS = 10, 5, 250, 7   # each timing: one untimed warm-up run, then the median of RUNS
 
 
-def build(mode):
+def build(mode, skin_vertices=0):
     bpy.ops.wm.read_factory_settings(use_empty=True)
     scene = bpy.context.scene
     scene.frame_start, scene.frame_end = 1, N_FRAMES
@@ -62,6 +63,8 @@ def build(mode):
             prop = "rotation_euler"
         for c in range(vals.shape[1]):
             anim_data.write_keys(anim_data.ensure_fcurve(bag, pb.path_from_id(prop), c, name), key_frames, vals[:, c], 'BEZIER')
+    if skin_vertices:
+        add_skinned_mesh(obj, skin_vertices)
     frames = np.arange(1, N_FRAMES + 1)
     tt = (frames - 1) / 24.0
     offsets = {}
@@ -69,6 +72,32 @@ def build(mode):
         ang = np.deg2rad(20) * np.exp(-1.4 * tt) * np.sin(9.4 * tt + i)
         offsets[name] = np.stack((np.cos(ang / 2), np.sin(ang / 2), 0 * ang, 0 * ang), axis=1)
     return obj, frames, offsets
+
+
+def add_skinned_mesh(obj, n_vertices):
+    """A grid of about ``n_vertices`` vertices over the chains, each vertex bound with weight 1 to
+    its nearest chain bone through an Armature modifier: the deformation a character's body mesh
+    adds to every evaluation of the scene."""
+    nx = int(np.sqrt(n_vertices / 2))
+    xs, zs = np.linspace(-0.05, 0.1 * (N_CHAINS - 1) + 0.05, 2 * nx), np.linspace(0.5, 1.5, nx)
+    gx, gz = np.meshgrid(xs, zs)   # (nx, 2 nx)
+    verts = np.stack((gx.ravel(), np.zeros(gx.size), gz.ravel()), axis=1)
+    cols = 2 * nx
+    faces = [(r * cols + c, r * cols + c + 1, (r + 1) * cols + c + 1, (r + 1) * cols + c)
+             for r in range(nx - 1) for c in range(cols - 1)]
+    mesh = bpy.data.meshes.new("BenchSkin")
+    mesh.from_pydata(verts.tolist(), [], faces)
+    skin = bpy.data.objects.new("BenchSkin", mesh)
+    bpy.context.scene.collection.objects.link(skin)
+    chain = np.clip(np.rint(verts[:, 0] / 0.1), 0, N_CHAINS - 1).astype(int)
+    link = np.clip(((1.5 - verts[:, 2]) / 0.2).astype(int), 0, CHAIN_LEN - 1)
+    for c in range(N_CHAINS):
+        for k in range(CHAIN_LEN):
+            members = np.flatnonzero((chain == c) & (link == k)).tolist()
+            skin.vertex_groups.new(name=f"ch{c}_{k}").add(members, 1.0, 'REPLACE')
+    skin.modifiers.new("Armature", 'ARMATURE').object = obj
+    skin.parent = obj
+    return skin
 
 
 def time_ours(obj, frames, offsets, tol):
@@ -145,6 +174,15 @@ def main():
               f"ratio {t_bl / t0:.1f}x")
         print(f"[{mode}] ours tol 0.5: {t5 * 1e3:.1f} ms, {s5.keys_written} keys ({s5.reduction_percent:.1f} % fewer, "
               f"max error {s5.max_error_deg:.3f} deg), {values / t5:,.0f} frame values/s, ratio {t_bl / t5:.1f}x")
+    # The same bones and frames with a body mesh deformed by them (the scene Blender's baker
+    # evaluates every frame; ours reads the F-curves and does not evaluate it).
+    obj, frames, offsets = build("XYZ", skin_vertices=SKIN_VERTICES)
+    n_verts = len(bpy.data.objects["BenchSkin"].data.vertices)
+    t_bl, keys_bl = time_blender(obj, frames)
+    t0, s0 = time_ours(obj, frames, offsets, 0.0)
+    t5, s5 = time_ours(obj, frames, offsets, 0.5)
+    print(f"[XYZ + {n_verts}-vertex skinned mesh] Blender bake_action: {t_bl * 1e3:.1f} ms, {keys_bl} keys; "
+          f"ours tol 0: {t0 * 1e3:.1f} ms, ratio {t_bl / t0:.1f}x; ours tol 0.5: {t5 * 1e3:.1f} ms, ratio {t_bl / t5:.1f}x")
     bpy.ops.wm.read_factory_settings(use_empty=True)
 
 
