@@ -50,7 +50,7 @@ from dataclasses import dataclass
 import bpy
 import numpy as np
 
-from ..core import rotations
+from ..core.rotations import compose_euler, quat_multiply
 from ..core.errors import OverlapAssistError
 from ..core.key_reduce import reduce_euler_groups, reduce_quaternion_groups
 from . import anim_data
@@ -176,16 +176,8 @@ def _validate(obj, frames, offsets, tolerance_deg, influence):
 
 
 # ---------------------------------------------------------------------------------------------
-# Rotation math (float64 numpy; Euler decomposition in core.rotations)
+# Sign continuity (rotation math is in core.rotations)
 # ---------------------------------------------------------------------------------------------
-
-def _qmul(a, b):
-    """Hamilton product of (n, 4) arrays (w, x, y, z)."""
-    w1, x1, y1, z1 = a.T
-    w2, x2, y2, z2 = b.T
-    return np.stack((w1 * w2 - x1 * x2 - y1 * y2 - z1 * z2, w1 * x2 + x1 * w2 + y1 * z2 - z1 * y2,
-                     w1 * y2 - x1 * z2 + y1 * w2 + z1 * x2, w1 * z2 + x1 * y2 - y1 * x2 + z1 * w2), axis=1)
-
 
 def _continuous(q, reference):
     """q (..., n, 4) with signs flipped so q[..., 0, :]·reference >= 0 and consecutive rows share a
@@ -195,24 +187,6 @@ def _continuous(q, reference):
     flips = np.sum(q[..., 1:, :] * q[..., :-1, :], axis=-1) < 0.0
     odd = np.concatenate((np.zeros(flips.shape[:-1] + (1,), dtype=np.int64), np.cumsum(flips, axis=-1)), axis=-1) % 2
     return q * (first[..., None] * np.where(odd == 1, -1.0, 1.0))[..., None]
-
-
-def compose_euler(basis, order, offsets):
-    """Euler angles of ``basis ∘ offset`` per frame, each nearest the previous frame's.
-
-    Parameters
-    ----------
-    basis : ndarray, shape (..., n, 3), animated Euler angles (rad) in ``order``
-    order : one of EULER_ORDERS
-    offsets : ndarray, shape (..., n, 4), unit quaternions (w, x, y, z)
-
-    Returns
-    -------
-    ndarray, shape (..., n, 3): composed angles; ``composed - basis`` is the continuous Euler offset.
-    Frame k equals mathutils' ``(Euler(basis_k).to_matrix() @ Quaternion(offset_k).to_matrix())
-    .to_euler(order, Euler(basis_k + previous offset))`` (see core.rotations.compose_euler).
-    """
-    return rotations.compose_euler(basis, order, offsets)
 
 
 def _rotation_property(pb):
@@ -590,7 +564,7 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
             basis = np.tile(np.array(getattr(pb, prop), dtype=np.float64), (len(frames), 1))
         if pb.rotation_mode == 'QUATERNION':
             quaternion_bones.add(name)
-            values_by_bone[name] = _continuous(_qmul(basis, q_off), basis[0])
+            values_by_bone[name] = _continuous(quat_multiply(basis, q_off), basis[0])
         else:
             values_by_bone[name] = None   # keeps the bones' order; filled per Euler order below
             euler_jobs.setdefault(pb.rotation_mode, []).append((name, basis, q_off, absolute))

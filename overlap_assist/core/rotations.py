@@ -151,13 +151,6 @@ def _quat_matrix_element(q, r, c):
     return 2.0 * (v[r] * v[c] + sign * w * v[t])
 
 
-def _matrix_to_euler_pair(m: np.ndarray, order: str) -> tuple[np.ndarray, np.ndarray]:
-    """The two Euler solutions (..., 3) of rotation matrices (..., 3, 3) in ``order``."""
-    element = lambda r, c: m[..., r, c]  # noqa: E731
-    e1, e2 = _euler_pair_cf(element, order)
-    return np.moveaxis(e1, 0, -1), np.moveaxis(e2, 0, -1)
-
-
 def _euler_pair_cf(element, order, turn_equivalent=False):
     """Both Euler solutions, components first (3, ...), from ``element(row, col)`` of the matrices.
 
