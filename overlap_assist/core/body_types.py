@@ -32,6 +32,13 @@ class MotionSamples:
         CoM of both arms and of the rest of the body (for the arm-swing timing), metres.
     arm_mass_fraction : float
         Share of body mass in the arms (from the segment table).
+    foot_points_m : ndarray, shape (n_feet, k, n, 3), optional
+        Points of each foot (heads and tails of its contact bones), metres; the lowest of them
+        tells contact (``foot_contact``). None: airborne phases come from the body's path.
+    foot_names : tuple of str
+        A name per foot (for messages), e.g. the foot bone's name.
+    leg_length_m : float
+        Hip-to-ankle length that scales the contact tolerances (0: a default adult leg).
     """
     frames: np.ndarray
     fps: float
@@ -42,6 +49,9 @@ class MotionSamples:
     arm_com_m: Optional[np.ndarray] = None
     rest_com_m: Optional[np.ndarray] = None
     arm_mass_fraction: float = 0.0
+    foot_points_m: Optional[np.ndarray] = None
+    foot_names: tuple = ()
+    leg_length_m: float = 0.0
 
     def __post_init__(self):
         frames = np.asarray(self.frames, dtype=float)
@@ -54,6 +64,12 @@ class MotionSamples:
             raise InputError("samples must be uniformly spaced in frames")
         if self.fps <= 0:
             raise InputError(f"frame rate must be positive (got {self.fps})")
+        if self.foot_points_m is not None:
+            fp = np.asarray(self.foot_points_m, dtype=float)
+            if fp.ndim != 4 or fp.shape[2] != frames.size or fp.shape[3] != 3:
+                raise InputError(f"foot points must have shape (feet, points, {frames.size}, 3), got {fp.shape}")
+            if not np.all(np.isfinite(fp)):
+                raise InputError("foot positions contain NaN or infinite values: check the rig's constraints")
         g = np.asarray(self.gravity_mps2, dtype=float)
         if g.shape != (3,) or not np.linalg.norm(g) > 0:
             raise InputError("gravity must be a non-zero 3-vector: set the scene gravity or choose standard gravity")
@@ -121,6 +137,9 @@ class Flight:
     """Peak upward arm swing minus takeoff, in frames (> 0: after takeoff)."""
     arm_swing_body_drop_m: float = 0.0
     """How far the rest of the body drops relative to the CoM because the arms rise in flight."""
+    kind: str = "jump"
+    """'jump' (leaves the ground rising) or 'drop' (airborne without upward takeoff speed: apex,
+    retiming and arm-swing checks do not apply)."""
 
 
 @dataclass(frozen=True)
@@ -149,3 +168,7 @@ class BodyAnalysis:
     flights: tuple = ()
     landings: tuple = ()
     warnings: tuple = field(default=())
+    airborne_from: str = "body path"
+    """'feet' (contact of the feet) or 'body path' (one parabola per airborne phase)."""
+    contact_feet: tuple = ()
+    """Names of the feet whose contact was used."""

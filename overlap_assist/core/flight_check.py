@@ -64,8 +64,8 @@ def check_flight(t_s, pos_m, gravity_mps2, takeoff_s, touchdown_s, fps, frame0) 
     g = float(np.linalg.norm(g_vec))
     up = up_axis(g_vec)
     sel = (t_s >= takeoff_s) & (t_s <= touchdown_s)
-    if sel.sum() < 4:
-        raise InputError("flight too short to fit: sample more sub-frames or lengthen the flight")
+    if sel.sum() < 3:
+        raise InputError("flight too short to fit: it must span at least three samples")
     tau = t_s[sel] - takeoff_s
     p = pos_m[sel]
     z = p @ up

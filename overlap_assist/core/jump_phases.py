@@ -3,9 +3,16 @@
 Phase names follow the force-plate literature on the countermovement jump (McMahon, Suchomel,
 Lake & Comfort 2018, Strength Cond. J. 40(4):96-106): quiet stance (their "weighing"),
 unweighting, braking, propulsion, flight, landing; "recovery" is our name for what follows the
-landing. Events (takeoff, touchdown) are placed at sub-sample precision by the midpoint rule:
-the smoothing kernel is symmetric, so a step in acceleration is crossed at half its height
-exactly at the instant of the step, whatever the window.
+landing; "drop" is an airborne phase entered without upward takeoff speed (stepping off a ledge).
+The airborne phases themselves come from foot contact (``foot_contact``) or the body's path
+(``ballistic_path``); ``find_flights`` (the load-threshold method with the midpoint rule) is kept
+for callers that have only a load curve.
+
+The countermovement is read from the body's vertical velocity, not from the load: the lowest
+point is where the velocity turns upward before takeoff, braking starts at the fastest descent
+and unweighting where the descent began (velocity within ``ONSET_SPEED_FRACTION`` of rest). The
+velocity is the integral of the load, so arm swings that make the load cross 1 g several times do
+not hide the dip.
 """
 from __future__ import annotations
 
@@ -20,10 +27,18 @@ RECOVERY_SETTLED_S = 0.25
 """Recovery ends once the load stays near 1 g this long (s); a judgement for keyed clips."""
 
 
+ONSET_SPEED_FRACTION = 0.05
+"""Unweighting starts where the downward speed is 5 % of its peak (the body leaves rest; the
+load-based rule, 5 % of body weight, Meylan et al. 2011, is the same idea one derivative up)."""
+MIN_DIP_SPEED_MPS = 0.1
+"""A descent slower than this (m/s) before the push is no countermovement (a squat jump)."""
+
+
 @dataclass(frozen=True)
 class FlightEvents:
     takeoff_s: float
     touchdown_s: float
+    kind: str = "jump"
 
 
 def _runs(mask: np.ndarray):
@@ -112,19 +127,25 @@ def jump_phases(t_s, load, vz, flights, settings: AnalysisSettings, fps: float, 
                 lowest = float(t_s[i - 1] + (t_s[i] - t_s[i - 1]) * (-a / (b - a)))
                 break
         events = []
-        if np.isfinite(lowest):
+        if fl.kind == "drop":
+            events = []
+        elif np.isfinite(lowest):
             i_low = index_at(lowest)
-            # Braking starts at peak downward velocity, where the load rises back through 1 g.
-            braking = float("nan")
-            for i in range(i_low, i_lim, -1):
-                if load[i - 1] < 1.0 <= load[i]:
-                    braking = _crossing_time(t_s, load, i - 1, i, 1.0, rising=True)
-                    break
-            if np.isfinite(braking):
+            seg = np.arange(i_lim, i_low + 1)
+            i_peak = int(seg[np.argmin(vz[seg])]) if seg.size else i_low
+            if vz[i_peak] < -MIN_DIP_SPEED_MPS:
+                # Braking starts at the fastest descent (a = 0, the load passes 1 g there).
+                braking = float(t_s[i_peak])
+                if 0 < i_peak < t_s.size - 1:
+                    a, b, c = vz[i_peak - 1], vz[i_peak], vz[i_peak + 1]
+                    den = a - 2 * b + c
+                    if den > 0:
+                        braking += float(np.clip(0.5 * (a - c) / den, -0.5, 0.5)) * float(t_s[1] - t_s[0])
+                level = ONSET_SPEED_FRACTION * vz[i_peak]
                 onset = float(t_s[i_lim])
-                for i in range(index_at(braking), i_lim, -1):
-                    if load[i - 1] >= 1.0 - drop > load[i]:
-                        onset = _crossing_time(t_s, load, i - 1, i, 1.0 - drop, rising=False)
+                for i in range(i_peak, i_lim, -1):
+                    if vz[i - 1] >= level > vz[i]:
+                        onset = _crossing_time(t_s, vz, i - 1, i, level, rising=False)
                         break
                 events = [("unweighting", onset), ("braking", braking), ("propulsion", lowest)]
             else:
@@ -136,12 +157,21 @@ def jump_phases(t_s, load, vz, flights, settings: AnalysisSettings, fps: float, 
                     start = _crossing_time(t_s, load, i - 1, i, 1.0 + drop, rising=True)
                     break
             events = [("propulsion", start)]
-        if events[0][1] > limit_s + 1e-9:
-            phases.append(Phase("quiet stance", frame(limit_s), frame(events[0][1])))
+        # Events in time order after the previous phase (never out of order).
+        kept, last = [], limit_s
+        for name, start in events:
+            start = min(max(start, last), fl.takeoff_s)
+            kept.append((name, start))
+            last = start
+        events = kept
+        first = events[0][1] if events else fl.takeoff_s
+        if first > limit_s + 1e-9:
+            phases.append(Phase("quiet stance", frame(limit_s), frame(first)))
         bounds = [e[1] for e in events] + [fl.takeoff_s]
         for (name, start), end in zip(events, bounds[1:]):
-            phases.append(Phase(name, frame(start), frame(end)))
-        phases.append(Phase("flight", frame(fl.takeoff_s), frame(fl.touchdown_s)))
+            if end > start + 1e-9:
+                phases.append(Phase(name, frame(start), frame(end)))
+        phases.append(Phase("drop" if fl.kind == "drop" else "flight", frame(fl.takeoff_s), frame(fl.touchdown_s)))
         # Landing: from touchdown until the body stops descending.
         next_to = flights[k + 1].takeoff_s if k + 1 < len(flights) else float(t_s[-1])
         i_td = index_at(fl.touchdown_s)
