@@ -218,34 +218,30 @@ def airborne_from_contact(t_s, feet, tol: ContactTolerances, min_flight_s: float
                             "(extend the frame range to include takeoff and touchdown)")
             continue
         i0, i1 = a - 1, b + 1
-        fine = refine(float(t_s[i0]), float(t_s[i0 + 1])) if refine is not None else None
         takeoff, who_to = -np.inf, ""
-        for k, f in enumerate(feet):
-            if not f.contact[i0]:
-                continue
-            if fine is not None:
-                tf, zf = fine
-                t_leave = crossing_time(tf, zf[k], f.level_m[i0] + tol.event_m, rising=True)
-                if not np.isfinite(t_leave):
-                    t_leave = _leave_time(t_s, f.low_z_m, i0, f.level_m[i0], tol, True)
-            else:
-                t_leave = _leave_time(t_s, f.low_z_m, i0, f.level_m[i0], tol, True)
-            if t_leave > takeoff:
-                takeoff, who_to = t_leave, f.name
-        fine = refine(float(t_s[i1 - 1]), float(t_s[i1])) if refine is not None else None
         touchdown, who_td = np.inf, ""
         for k, f in enumerate(feet):
-            if not f.contact[i1]:
-                continue
-            if fine is not None:
-                tf, zf = fine
-                t_arrive = crossing_time(tf, zf[k], f.level_m[i1] + tol.event_m, rising=False)
-                if not np.isfinite(t_arrive):
-                    t_arrive = _leave_time(t_s, f.low_z_m, i1, f.level_m[i1], tol, False)
-            else:
-                t_arrive = _leave_time(t_s, f.low_z_m, i1, f.level_m[i1], tol, False)
-            if t_arrive < touchdown:
-                touchdown, who_td = t_arrive, f.name
+            for rising, i_edge in ((True, i0), (False, i1)):
+                if not f.contact[i_edge]:
+                    continue
+                target = f.level_m[i_edge] + tol.event_m
+                # The contact sample next to the gap may already be above the event level
+                # (within "near"): step into the contact to the sample below it.
+                j, step = i_edge, (-1 if rising else 1)
+                while 0 < j < n - 1 and f.contact[j + step] and f.low_z_m[j] > target:
+                    j += step
+                t_ev = _leave_time(t_s, f.low_z_m, j, f.level_m[i_edge], tol, rising)
+                if refine is not None:
+                    pair = (j, j + 1) if rising else (j - 1, j)
+                    if 0 <= pair[0] and pair[1] < n:
+                        tf, zf = refine(float(t_s[pair[0]]), float(t_s[pair[1]]))
+                        t_fine = crossing_time(tf, zf[k], target, rising=rising)
+                        if np.isfinite(t_fine):
+                            t_ev = t_fine
+                if rising and t_ev > takeoff:
+                    takeoff, who_to = t_ev, f.name
+                elif not rising and t_ev < touchdown:
+                    touchdown, who_td = t_ev, f.name
         if touchdown - takeoff < min_flight_s:
             continue
         events.append(ContactEvent(i0, i1, float(takeoff), float(touchdown), who_to, who_td))
