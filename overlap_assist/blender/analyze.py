@@ -2,6 +2,7 @@
 import json
 
 import bpy
+import numpy as np
 
 from ..core.body_analysis import analyse_body, analysis_to_dict
 from ..core.errors import OverlapAssistError
@@ -13,13 +14,28 @@ LOAD_PROPERTY = "overlap_load_g"
 """Custom property on the armature object whose F-curve shows the load factor."""
 LOAD_GROUP = "Overlap Load"
 MARKER_EVENTS = (("takeoff_frame", "takeoff"), ("apex_frame", "apex"), ("touchdown_frame", "touchdown"))
+DROP_MARKER_EVENTS = (("takeoff_frame", "drop"), ("touchdown_frame", "touchdown"))
 
 
-def run_analysis(obj, scene, progress=None):
-    """Sample the rig and analyse it. Returns (BodyAnalysis, warnings)."""
+def run_analysis(obj, scene, progress=None, sampled=None):
+    """Sample the rig and analyse it. Returns (BodyAnalysis, warnings).
+
+    ``sampled``: (frames, heads, tails) of the rig's bones already read at whole frames (the
+    chain sampling pass), reused when it covers the analysed frames and bones.
+    """
     settings = obj.overlap_assist.body
-    samples, warnings = body_samples(obj, scene, settings, progress)
-    result = analyse_body(samples, settings.analysis_settings())
+    samples = None
+    if sampled is not None and not settings.spline_blocked_keys:
+        from .sample_body import body_plan, make_refine, samples_from
+        plan = body_plan(obj, scene, settings)
+        frames, heads, tails = sampled
+        if np.array_equal(np.asarray(frames, float), plan.frames) and all(b in heads for b in plan.bones):
+            samples = samples_from(plan, {b: heads[b] for b in plan.bones}, {b: tails[b] for b in plan.bones})
+            warnings = plan.warnings
+            refine = make_refine(obj, scene, plan, settings.samples_per_frame) if plan.feet else None
+    if samples is None:
+        samples, warnings, refine = body_samples(obj, scene, settings, progress)
+    result = analyse_body(samples, settings.analysis_settings(), refine=refine)
     return result, warnings + list(result.warnings)
 
 
@@ -52,7 +68,7 @@ def write_markers(obj, scene, result):
     names = []
     for k, fl in enumerate(result.flights):
         suffix = "" if len(result.flights) == 1 else f" {k + 1}"
-        for attr, label in MARKER_EVENTS:
+        for attr, label in (DROP_MARKER_EVENTS if fl.kind == "drop" else MARKER_EVENTS):
             name = f"{label}{suffix}"
             frame = int(round(getattr(fl, attr)))
             scene.timeline_markers.new(name, frame=frame)
@@ -61,11 +77,18 @@ def write_markers(obj, scene, result):
     return names
 
 
+BODY_WORDS = {"com": "center of mass", "root": "root bone"}
+
+
 def summary_line(result):
     if not result.flights:
         return f"No flight found; load {result.load_factor.min():.2f}–{result.load_factor.max():.2f} g"
-    parts = []
+    parts = [f"body: {BODY_WORDS.get(result.body_source, result.body_source)}; airborne from {result.airborne_from}"]
     for fl in result.flights:
+        if fl.kind == "drop":
+            parts.append(f"drop {fl.takeoff_frame:.1f}, touchdown {fl.touchdown_frame:.1f}: "
+                         f"{fl.hang_time_s:.2f} s in the air, {fl.verdict}")
+            continue
         parts.append(f"takeoff {fl.takeoff_frame:.1f}, apex {fl.apex_frame:.1f}, touchdown {fl.touchdown_frame:.1f}: "
                      f"hang {fl.hang_time_s:.2f} s, {fl.verdict}")
     if result.landings:

@@ -19,6 +19,12 @@ class OverlapPanelMixin:
 
 def draw_flight(layout, fl, fps):
     col = layout.column(align=True)
+    if fl.get("kind") == "drop":
+        col.label(text=f"Drop {fl['takeoff_frame']:.1f} · touchdown {fl['touchdown_frame']:.1f}")
+        col.label(text=f"In the air {fl['hang_time_s']:.2f} s (no takeoff speed: no apex or retiming check)")
+        col.label(text=f"Gravity: {fl['verdict']} ({fl['implied_gravity_mps2']:.2f} m/s²)",
+                  icon='CHECKMARK' if fl['verdict'].startswith("ballistic") else 'ERROR')
+        return
     col.label(text=f"Takeoff {fl['takeoff_frame']:.1f} · apex {fl['apex_frame']:.1f} · "
                    f"touchdown {fl['touchdown_frame']:.1f}")
     col.label(text=f"Hang time {fl['hang_time_s']:.2f} s · apex {100 * fl['apex_height_m']:.0f} cm")
@@ -48,11 +54,12 @@ class VIEW3D_PT_overlap_assist_body(OverlapPanelMixin, bpy.types.Panel):
         obj = context.active_object
         s = obj.overlap_assist.body
         layout.prop(s, "body_source")
-        if s.body_source == 'ROOT':
+        if s.body_source != 'COM':
             layout.prop_search(s, "body_bone", obj.data, "bones")
-        else:
+        if s.body_source != 'ROOT':
             layout.prop(s, "segment_table")
             layout.prop(s, "bone_overrides")
+        layout.prop(s, "contact_bones")
         layout.prop(s, "gravity_source")
         layout.prop(s, "spline_blocked_keys")
         layout.operator("overlap_assist.analyze_motion", icon='PLAY')
@@ -60,6 +67,10 @@ class VIEW3D_PT_overlap_assist_body(OverlapPanelMixin, bpy.types.Panel):
             return
         summary = json.loads(s.last_summary)
         box = layout.box()
+        used = {"com": "center of mass", "root": "root bone"}.get(summary.get("body_source"), "?")
+        box.label(text=f"Body: {used}" + (" (automatic)" if s.body_source == 'AUTO' else ""))
+        feet = summary.get("contact_feet") or []
+        box.label(text="Airborne from: " + (f"feet ({', '.join(feet)})" if feet else "the body's path"))
         for fl in summary.get("flights", []):
             draw_flight(box, fl, summary.get("fps", 24.0))
         for land in summary.get("landings", []):

@@ -11,8 +11,9 @@ from ..core.body_types import AnalysisSettings
 from . import chain_props
 
 BODY_SOURCES = (
+    ("AUTO", "Automatic", "The center of mass when every body segment is matched to a bone, else the root bone"),
     ("ROOT", "Root bone", "Use one bone (the hips or root) as the body"),
-    ("COM", "Centre of mass", "Estimate the whole-body centre of mass from deform bones with a segment table"),
+    ("COM", "Center of mass", "Estimate the whole-body center of mass from deform bones with a segment table"),
 )
 SEGMENT_TABLES = (
     ("dempster", "Dempster (Winter 2009)", "Dempster 1955 cadaver data as tabulated by Winter 2009, Table 4.1"),
@@ -26,20 +27,25 @@ GRAVITY_SOURCES = (
 
 
 class OverlapAssistBodySettings(bpy.types.PropertyGroup):
-    body_source: EnumProperty(name="Body", items=BODY_SOURCES, default="ROOT",
+    body_source: EnumProperty(name="Body", items=BODY_SOURCES, default="AUTO",
                               description="What stands for the body's motion")
     body_bone: StringProperty(name="Root bone", default="",
                               description="Bone that carries the body (empty: a bone named like hips or pelvis, "
                                           "else the first top-level bone)")
     segment_table: EnumProperty(name="Segment table", items=SEGMENT_TABLES, default="dempster",
-                                description="Mass share and centre of mass of each body segment")
+                                description="Mass share and center of mass of each body segment")
     bone_overrides: StringProperty(
         name="Bone overrides", default="",
-        description="Manual bone choices for the centre of mass, e.g. 'thigh.L=LegUp_L, hand.R=Palm_R'")
+        description="Manual bone choices for the center of mass, e.g. 'thigh.L=LegUp_L, hand.R=Palm_R'")
+    contact_bones: StringProperty(
+        name="Contact bones", default="",
+        description="Bones that touch the ground, comma-separated, e.g. 'foot.L, toe.L, foot.R, toe.R' "
+                    "(empty: the feet and toes found by name); bones of one side make one foot")
     gravity_source: EnumProperty(name="Gravity", items=GRAVITY_SOURCES, default="SCENE",
                                  description="Which gravity the body motion is compared with")
-    samples_per_frame: IntProperty(name="Samples per frame", default=C.SAMPLES_PER_FRAME, min=1, max=16,
-                                   description="Sub-frame samples: more gives sharper takeoff and touchdown times")
+    samples_per_frame: IntProperty(name="Event sub-frames", default=C.SAMPLES_PER_FRAME, min=1, max=16,
+                                   description="Sub-frame samples of the feet around takeoff and touchdown "
+                                               "(the body is sampled at whole frames)")
     smoothing_window: FloatProperty(name="Smoothing (frames)", default=C.SMOOTHING_WINDOW_FRAMES,
                                     min=0.25, max=10.0, description="Savitzky–Golay window span in frames; "
                                     "raise it for noisy motion capture")

@@ -4,6 +4,7 @@ Positions come from ``pose.bones.foreach_get('matrix')`` after ``scene.frame_set
 sub-frame, so constraints, drivers and NLA are included; the current frame is restored.
 """
 import contextlib
+from dataclasses import dataclass, field
 
 import bpy
 import numpy as np
@@ -63,6 +64,130 @@ def pick_body_bone(obj, name):
     if not tops:
         raise InputError(f"'{obj.name}' has no bones")
     return tops[0]
+
+
+@dataclass
+class BodyPlan:
+    """What to sample for the analysis and how to turn it into MotionSamples."""
+    frames: np.ndarray
+    fps: float
+    scale: float
+    gravity: np.ndarray
+    source: str
+    body_bone: str
+    roles: dict
+    table: object
+    feet: dict
+    leg_m: float
+    warnings: list = field(default_factory=list)
+
+    @property
+    def bones(self):
+        names = {self.body_bone} | {b for bl in self.feet.values() for b in bl}
+        if self.source == "com":
+            names |= {b for bl in self.roles.values() for b in bl}
+        return sorted(names)
+
+
+def _leg_length_m(obj, roles, scale):
+    """Hip-to-ankle length of the rest pose (metres), 0 if the legs are not matched."""
+    bones = obj.data.bones
+    for side in ("L", "R"):
+        thigh, foot = roles.get(f"thigh.{side}"), roles.get(f"foot.{side}")
+        if thigh and foot and thigh[0] in bones and foot[0] in bones:
+            d = np.linalg.norm(np.array(bones[thigh[0]].head_local) - np.array(bones[foot[0]].head_local))
+            if d > 0:
+                return float(d * obj.matrix_world.to_scale()[2] * scale)
+    return 0.0
+
+
+def body_plan(obj, scene, settings, whole_frames=True):
+    """Decide the body source, the feet and the frames to sample (no sampling yet)."""
+    check_armature(obj)
+    start, end = frame_range(scene, settings)
+    frames = np.arange(start, end + 1, dtype=float) if whole_frames else \
+        sample_times(start, end, settings.samples_per_frame)
+    scale = scene.unit_settings.scale_length
+    fps = scene.render.fps / scene.render.fps_base
+    g = gravity_mps2(scene, settings.gravity_source)
+    warnings = []
+    gn = float(np.linalg.norm(g))
+    if not 1.0 < gn < 30.0:
+        warnings.append(f"scene gravity is {gn:.3g} m/s² (scene units × unit scale {scale:g}): "
+                        "set it in scene units (e.g. -981 in a centimetre scene) or choose standard gravity")
+    body_bone = pick_body_bone(obj, settings.body_bone)
+    table = segs.SEGMENT_TABLES[settings.segment_table]
+    deform = [b.name for b in obj.data.bones if b.use_deform] or [b.name for b in obj.data.bones]
+    roles, _ = segs.match_roles(deform, settings.overrides())
+    missing_bones = [b for bl in roles.values() for b in bl if b not in obj.data.bones]
+    if missing_bones:
+        raise InputError(f"override names bones that are not in '{obj.name}': {', '.join(missing_bones)}; "
+                         "write role=bone with existing bone names")
+    source = "root"
+    if settings.body_source in ("COM", "AUTO"):
+        needed = [r for r in segs.required_roles(table) if r not in roles]
+        if not needed:
+            source = "com"
+        elif settings.body_source == "COM":
+            warnings.append("center of mass needs bones for: " + ", ".join(needed)
+                            + f"; using the root bone '{body_bone}' instead (set Bone overrides)")
+        else:
+            warnings.append(f"body: the root bone '{body_bone}' (the center of mass needs bones for: "
+                            + ", ".join(needed) + "; set Bone overrides to use it)")
+    feet = segs.contact_bones(deform, roles, settings.contact_bones)
+    bad = [b for bl in feet.values() for b in bl if b not in obj.data.bones]
+    if bad:
+        raise InputError(f"contact bones not in '{obj.name}': {', '.join(bad)}; pick existing bones "
+                         "(comma-separated) or leave Contact bones empty to find the feet by name")
+    return BodyPlan(frames, fps, scale, g, source, body_bone, roles, table, feet,
+                    _leg_length_m(obj, roles, scale), warnings)
+
+
+def samples_from(plan, heads, tails):
+    """MotionSamples from sampled bone heads and tails (scene units, dicts name -> (n, 3))."""
+    heads = {k: v * plan.scale for k, v in heads.items()}
+    tails = {k: v * plan.scale for k, v in tails.items()}
+    kw = {}
+    if plan.source == "com":
+        lm = segs.landmark_positions(plan.roles, heads, tails)
+        body, _ = segs.whole_body_com(plan.table, lm)
+        arms, arm_mass = segs.whole_body_com(plan.table, lm, only=segs.ARM_SEGMENTS)
+        rest_names = [s.name for s in plan.table.segments if s.name not in segs.ARM_SEGMENTS]
+        rest, _ = segs.whole_body_com(plan.table, lm, only=rest_names)
+        kw = dict(arm_com_m=arms, rest_com_m=rest, arm_mass_fraction=arm_mass)
+    else:
+        body = heads[plan.body_bone]
+    if np.ptp(body, axis=0).max() < 1e-9:
+        raise InputError(f"the body ('{plan.body_bone}') does not move in frames {plan.frames[0]:g}-{plan.frames[-1]:g}: "
+                         "key the body's motion or pick the bone that carries it")
+    if plan.feet:
+        kw.update(foot_points_m=foot_points(plan, heads, tails), foot_names=tuple(plan.feet),
+                  leg_length_m=plan.leg_m)
+    return MotionSamples(frames=plan.frames, fps=plan.fps, body_pos_m=body, gravity_mps2=plan.gravity,
+                         body_source=plan.source, unit_scale=plan.scale, **kw)
+
+
+def foot_points(plan, heads_m, tails_m):
+    """(n_feet, k, n, 3) heads and tails of each foot's bones, padded to the same k by repeating."""
+    groups = [[heads_m[b] for b in bl] + [tails_m[b] for b in bl] for bl in plan.feet.values()]
+    k = max(len(g) for g in groups)
+    return np.stack([np.stack(g + [g[-1]] * (k - len(g))) for g in groups])
+
+
+def make_refine(obj, scene, plan, sub_per_frame):
+    """Callable(t_from_s, t_to_s) -> (t_fine, foot points) sampling the feet between two frames."""
+    names = sorted({b for bl in plan.feet.values() for b in bl})
+    frame0 = float(plan.frames[0])
+
+    def refine(t_a, t_b):
+        fa, fb = frame0 + t_a * plan.fps, frame0 + t_b * plan.fps
+        m = max(int(round((fb - fa) * sub_per_frame)), 1) + 1
+        fr = np.linspace(fa, fb, m)
+        heads, tails = sample_bones(obj, scene, names, fr)
+        pts = foot_points(plan, {k: v * plan.scale for k, v in heads.items()},
+                          {k: v * plan.scale for k, v in tails.items()})
+        return (fr - frame0) / plan.fps, pts
+    return refine
 
 
 @contextlib.contextmanager
@@ -131,57 +256,15 @@ def sample_bones(obj, scene, bone_names, frames, progress=None):
 
 
 def body_samples(obj, scene, settings, progress=None):
-    """Sample ``obj`` as the analysis needs it.
+    """Sample ``obj`` as the analysis needs it (whole frames).
 
-    Returns (MotionSamples, warnings list).
+    Returns (MotionSamples, warnings list, refine callable or None).
     """
-    check_armature(obj)
-    start, end = frame_range(scene, settings)
-    frames = sample_times(start, end, settings.samples_per_frame)
-    scale = scene.unit_settings.scale_length
-    fps = scene.render.fps / scene.render.fps_base
-    g = gravity_mps2(scene, settings.gravity_source)
-    warnings = []
-    gn = float(np.linalg.norm(g))
-    if not 1.0 < gn < 30.0:
-        warnings.append(f"scene gravity is {gn:.3g} m/s² (scene units × unit scale {scale:g}): "
-                        "set it in scene units (e.g. -981 in a centimetre scene) or choose standard gravity")
-    body_bone = pick_body_bone(obj, settings.body_bone)
-    source = "root"
-    roles, unmatched = None, []
-    table = segs.SEGMENT_TABLES[settings.segment_table]
-    if settings.body_source == "COM":
-        deform = [b.name for b in obj.data.bones if b.use_deform] or [b.name for b in obj.data.bones]
-        roles, unmatched = segs.match_roles(deform, settings.overrides())
-        missing_bones = [b for bl in roles.values() for b in bl if b not in obj.data.bones]
-        if missing_bones:
-            raise InputError(f"override names bones that are not in '{obj.name}': {', '.join(missing_bones)}")
-        needed = [r for r in segs.required_roles(table) if r not in roles]
-        if needed:
-            warnings.append("centre of mass needs bones for: " + ", ".join(needed)
-                            + f"; using the root bone '{body_bone}' instead (set Bone overrides)")
-        else:
-            source = "com"
-    names = [body_bone]
-    if source == "com":
-        names = sorted({b for bl in roles.values() for b in bl} | {body_bone})
+    plan = body_plan(obj, scene, settings)
     with splined_keys(obj, settings.spline_blocked_keys):
-        heads, tails = sample_bones(obj, scene, names, frames, progress)
-    heads = {k: v * scale for k, v in heads.items()}
-    tails = {k: v * scale for k, v in tails.items()}
-    kw = {}
-    if source == "com":
-        lm = segs.landmark_positions(roles, heads, tails)
-        body, _ = segs.whole_body_com(table, lm)
-        arms, arm_mass = segs.whole_body_com(table, lm, only=segs.ARM_SEGMENTS)
-        rest_names = [s.name for s in table.segments if s.name not in segs.ARM_SEGMENTS]
-        rest, _ = segs.whole_body_com(table, lm, only=rest_names)
-        kw = dict(arm_com_m=arms, rest_com_m=rest, arm_mass_fraction=arm_mass)
-    else:
-        body = heads[body_bone]
-    if np.ptp(body, axis=0).max() < 1e-9:
-        raise InputError(f"the body ('{body_bone}') does not move in frames {start}-{end}: "
-                         "key the body's motion or pick the bone that carries it")
-    samples = MotionSamples(frames=frames, fps=fps, body_pos_m=body, gravity_mps2=g, body_source=source,
-                            unit_scale=scale, **kw)
-    return samples, warnings
+        heads, tails = sample_bones(obj, scene, plan.bones, plan.frames, progress)
+    samples = samples_from(plan, heads, tails)
+    refine = None
+    if plan.feet and not settings.spline_blocked_keys:
+        refine = make_refine(obj, scene, plan, settings.samples_per_frame)
+    return samples, plan.warnings, refine

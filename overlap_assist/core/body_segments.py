@@ -196,10 +196,13 @@ def match_roles(bone_names: Sequence[str], overrides: Mapping[str, str] | None =
         stem, side, part = parse_bone_name(name)
         for role, stems in ROLE_STEMS.items():
             if stem in stems:
+                if role not in SIDED_ROLES and side:
+                    break  # a sided bone ("pelvis.L") is not the one unsided role
                 key = f"{role}.{side}" if role in SIDED_ROLES else role
                 if key in found:
                     found[key].append((stems.index(stem), part, name))
                 break
+    _rigify_head_and_neck(bone_names, found)
     roles = {}
     for key in wanted:
         if key in overrides and overrides[key]:
@@ -210,6 +213,59 @@ def match_roles(bone_names: Sequence[str], overrides: Mapping[str, str] | None =
             roles[key] = [n for rank, _, n in sorted(found[key]) if rank == best]
     unmatched = [k for k in wanted if k not in roles]
     return roles, unmatched
+
+
+RIGIFY_SPINE_PARTS = 7
+"""Rigify's human spine is one chain of seven bones, ``spine`` to ``spine.006``: hips, two spine
+bones, chest, two neck bones and the head (the bundled human metarig)."""
+
+
+def _rigify_head_and_neck(bone_names, found):
+    """Fill head and neck from a spine chain of seven or more parts when no bone is named so."""
+    if found["head"]:
+        return
+    parts = sorted((part, name) for name in bone_names for stem, side, part in [parse_bone_name(name)]
+                   if stem == "spine" and not side)
+    if len(parts) < RIGIFY_SPINE_PARTS or len({p for p, _ in parts}) != len(parts):
+        return
+    found["head"].append((0, 0, parts[-1][1]))
+    if not found["neck"]:
+        found["neck"].extend((0, k, name) for k, (_, name) in enumerate(parts[-3:-1]))
+
+
+TOE_STEMS = ("toe", "toes", "toebase", "ball", "toetip")
+
+
+def contact_bones(bone_names: Sequence[str], roles: Mapping[str, Sequence[str]], chosen: str = ""):
+    """Bones whose lowest point tells each foot's contact, grouped per foot.
+
+    Parameters
+    ----------
+    bone_names : candidate bones (deform bones first is best)
+    roles : matched roles (``foot.L`` etc.)
+    chosen : the user's comma-separated "Contact bones"; when given it wins, grouped by side
+        (bones without a side are a foot each).
+
+    Returns
+    -------
+    dict foot name (its first bone) -> list of bone names
+    """
+    groups = {}
+    if chosen.strip():
+        by_side = {}
+        for name in (n.strip() for n in chosen.split(",")):
+            if not name:
+                continue
+            _, side, _ = parse_bone_name(name)
+            by_side.setdefault(side or name, []).append(name)
+        return {bones[0]: bones for bones in by_side.values()}
+    for side in SIDES:
+        feet = list(roles.get(f"foot.{side}", []))
+        toes = [n for n in bone_names for stem, sd, _ in [parse_bone_name(n)] if stem in TOE_STEMS and sd == side]
+        if feet or toes:
+            bones = feet + [t for t in toes if t not in feet]
+            groups[bones[0]] = bones
+    return groups
 
 
 def required_roles(table: SegmentTable) -> list:

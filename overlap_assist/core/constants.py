@@ -9,8 +9,10 @@ CAUTION = "Figures are for animation plausibility only, not biomechanical or med
 STANDARD_GRAVITY_MPS2 = 9.80665
 """Standard acceleration of free fall (3rd CGPM, 1901)."""
 
-SAMPLES_PER_FRAME = 4
-"""Sub-frame samples per frame when sampling the rig: takeoff/touchdown need sub-frame timing."""
+SAMPLES_PER_FRAME = 8
+"""Sub-frame samples per frame of the feet around a contact change (takeoff/touchdown need
+sub-frame timing; the body itself is sampled at whole frames: keyed samples are what the
+animator set, the interpolation between them is not motion)."""
 
 SMOOTHING_WINDOW_FRAMES = 1.0
 """Savitzky–Golay window span in frames. Keyed animation is smooth, so a short window keeps

@@ -212,6 +212,13 @@ def airborne_from_contact(t_s, feet, tol: ContactTolerances, min_flight_s: float
     for f in feet:
         any_contact |= f.contact
     events, warnings = [], []
+    if refine is not None:
+        cache, plain = {}, refine
+
+        def refine(t_a, t_b):  # one dense sampling per pair of frames, shared by all feet
+            if (t_a, t_b) not in cache:
+                cache[(t_a, t_b)] = plain(t_a, t_b)
+            return cache[(t_a, t_b)]
     for a, b in _runs(~any_contact):
         if a == 0 or b == n - 1:
             warnings.append("the clip starts or ends in the air: that airborne phase is not checked "
