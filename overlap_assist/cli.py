@@ -26,12 +26,13 @@ def build_parser():
     a = sub.add_parser("analyze", help="analyse a rig's body motion: load, phases, flight check")
     a.add_argument("file", help=".blend file to read (never modified)")
     a.add_argument("--armature", help="armature object name (default: the only armature)")
-    a.add_argument("--body", choices=("root", "com"), help="body source: root bone or centre of mass")
+    add_body_options(a)
     a.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     s = sub.add_parser("simulate", help="simulate chains and print per-chain summaries (nothing is written)")
     s.add_argument("file", help=".blend file to read (never modified)")
     s.add_argument("--armature", help="armature object name (default: the only armature)")
     add_chain_options(s)
+    add_body_options(s)
     s.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     b = sub.add_parser("bake", help="simulate chains and bake them to keys on a separate layer, saved to --out")
     b.add_argument("file", help=".blend file to read")
@@ -55,6 +56,43 @@ def build_parser():
     d = sub.add_parser("demo", help="build our demo character and jumps, analyse them, write the outputs")
     d.add_argument("--out", default="out/demo", help="output folder (created; existing outputs are replaced)")
     return p
+
+
+def add_body_options(p):
+    p.add_argument("--body", choices=("auto", "root", "com"),
+                   help="body source: auto (center of mass when every segment is matched, else the root bone; "
+                        "the default), root bone or center of mass")
+    p.add_argument("--contact", metavar="BONE[,BONE...]",
+                   help="bones that touch the ground (default: the feet and toes found by name)")
+    p.add_argument("--override", action="append", default=[], metavar="ROLE=BONE",
+                   help="bone for a body segment role, e.g. thigh.L=Leg_upper_left (repeat for more)")
+
+
+def apply_body_options(obj, args):
+    """Put --body, --contact and --override on the armature's settings (in memory only)."""
+    from .core.body_segments import SIDED_ROLES, SIDES
+    roles = {f"{r}.{s}" for r in SIDED_ROLES for s in SIDES} | {"neck", "head", "hips"}
+    body = obj.overlap_assist.body
+    if getattr(args, "body", None):
+        body.body_source = args.body.upper()
+    if getattr(args, "contact", None):
+        names = [n.strip() for n in args.contact.split(",") if n.strip()]
+        missing = [n for n in names if n not in obj.data.bones]
+        if missing:
+            raise CliError(f"--contact names bones that are not in '{obj.name}': {', '.join(missing)}")
+        body.contact_bones = ", ".join(names)
+    pairs = []
+    for item in getattr(args, "override", None) or []:
+        role, sep, bone = (x.strip() for x in item.partition("="))
+        if not sep or not role or not bone:
+            raise CliError(f"--override '{item}' must be ROLE=BONE, e.g. thigh.L=Leg_upper_left")
+        if role not in roles:
+            raise CliError(f"--override: unknown role '{role}'; roles are " + ", ".join(sorted(roles)))
+        if bone not in obj.data.bones:
+            raise CliError(f"--override: bone '{bone}' is not in '{obj.name}'")
+        pairs.append(f"{role}={bone}")
+    if pairs:
+        body.bone_overrides = ", ".join(pairs)
 
 
 def add_chain_options(p):
@@ -176,8 +214,7 @@ def cmd_analyze(args, out):
     open_blend(bpy, args.file)
     with addon_registered(bpy):
         obj = pick_armature(bpy, args.armature)
-        if args.body:
-            obj.overlap_assist.body.body_source = args.body.upper()
+        apply_body_options(obj, args)
         result, warnings = run_analysis(obj, bpy.context.scene)
         if args.json:
             d = analysis_to_dict(result)
@@ -227,11 +264,17 @@ def simulate_summary(obj, scene, chains):
     from .blender import chain_sim
     from .blender.analyze import run_analysis
     from .core.chain_summary import settle_index, swing_angles
-    sampled = chain_sim.sample_rig(obj, scene, chains, scene.frame_start, scene.frame_end)
+    extra = ()
+    try:
+        from .blender.sample_body import body_plan
+        extra = tuple(body_plan(obj, scene, obj.overlap_assist.body).bones)
+    except Exception:  # noqa: BLE001 - the chain summary stands without a body analysis
+        pass
+    sampled = chain_sim.sample_rig(obj, scene, chains, scene.frame_start, scene.frame_end, extra_bones=extra)
     motion, _ = chain_sim.solve(sampled, chain_sim.settings_for(obj, scene, chains))
     touchdown = None
     try:
-        body, _ = run_analysis(obj, scene)
+        body, _ = run_analysis(obj, scene, sampled=sampled.extra)
         if body.flights:
             touchdown = body.flights[-1].touchdown_frame
     except Exception:  # noqa: BLE001 - the chain summary stands without a body analysis
@@ -257,6 +300,7 @@ def cmd_simulate(args, out):
         obj = pick_armature(bpy, args.armature)
         scene = bpy.context.scene
         chains = configure_chains(obj, scene, args)
+        apply_body_options(obj, args)
         rows = simulate_summary(obj, scene, chains)
         if args.json:
             out.write(json.dumps({"armature": obj.name, "frame_start": scene.frame_start,

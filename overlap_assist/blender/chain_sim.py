@@ -30,6 +30,7 @@ class SampledRig:
     colliders: Colliders
     gravity_mps2: np.ndarray
     dt_s: float
+    extra: tuple = None            # (frames, heads, tails) in scene units of ``extra_bones``, for the body analysis
 
 
 def chain_problem(obj, chain):
@@ -87,12 +88,16 @@ def run_to_end(steps, progress=None):
         return done.value
 
 
-def sample_rig(obj, scene, chains, frame_start, frame_end, progress=None) -> SampledRig:
-    """Sample chain bones and collider bones at every whole frame (restores the current frame)."""
-    return run_to_end(sample_rig_steps(obj, scene, chains, frame_start, frame_end), progress)
+def sample_rig(obj, scene, chains, frame_start, frame_end, progress=None, extra_bones=()) -> SampledRig:
+    """Sample chain bones and collider bones at every whole frame (restores the current frame).
+
+    ``extra_bones`` are read in the same pass (heads and tails in ``SampledRig.extra``), so the
+    body analysis can reuse it instead of stepping through the frames again."""
+    return run_to_end(sample_rig_steps(obj, scene, chains, frame_start, frame_end, extra_bones=extra_bones),
+                      progress)
 
 
-def sample_rig_steps(obj, scene, chains, frame_start, frame_end, every=16):
+def sample_rig_steps(obj, scene, chains, frame_start, frame_end, every=16, extra_bones=()):
     """:func:`sample_rig` as a generator: yields the fraction done every ``every`` frames and
     returns the SampledRig. Closing it early (a cancelled bake) restores the frame and the layer."""
     if frame_end <= frame_start:
@@ -108,7 +113,7 @@ def sample_rig_steps(obj, scene, chains, frame_start, frame_end, every=16):
                          "pick existing bones or remove those colliders")
     pbones = obj.pose.bones
     index = {b.name: i for i, b in enumerate(pbones)}
-    needed = sorted({n for names in chain_bones for n in names} | {c.bone for c in colliders})
+    needed = sorted({n for names in chain_bones for n in names} | {c.bone for c in colliders} | set(extra_bones))
     idx = np.array([index[n] for n in needed], dtype=int)
     pos = {n: i for i, n in enumerate(needed)}
     lengths = np.array([obj.data.bones[n].length for n in needed])
@@ -157,9 +162,14 @@ def sample_rig_steps(obj, scene, chains, frame_start, frame_end, every=16):
         capsule_radii_m=np.array([c.radius * scale for c in capsules]),
         ground_height_m=settings.ground_height * scale if settings.use_ground else None)
     fps = scene.render.fps / scene.render.fps_base
+    extra = None
+    if extra_bones:
+        world_heads = mats[:, :, :3, 3]
+        world_tails = world_heads + y_axes * lengths[None, :, None]
+        extra = (frames, {n: world_heads[:, pos[n]] for n in extra_bones}, {n: world_tails[:, pos[n]] for n in extra_bones})
     return SampledRig(frames=frames, chain_names=[c.name for c in chains], bone_names=chain_bones, inputs=inputs,
                       world_rot=world_rot, basis_rot=basis_rot, colliders=coll,
-                      gravity_mps2=gravity_mps2(scene, settings.body.gravity_source), dt_s=1.0 / fps)
+                      gravity_mps2=gravity_mps2(scene, settings.body.gravity_source), dt_s=1.0 / fps, extra=extra)
 
 
 def solve(sampled: SampledRig, chain_settings):
