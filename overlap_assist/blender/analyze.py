@@ -26,13 +26,15 @@ def run_analysis(obj, scene, progress=None, sampled=None):
     settings = obj.overlap_assist.body
     samples = None
     if sampled is not None and not settings.spline_blocked_keys:
-        from .sample_body import body_plan, make_refine, samples_from
+        from .sample_body import body_plan, keys_are_dense, make_refine, samples_from
         plan = body_plan(obj, scene, settings)
         frames, heads, tails = sampled
         if np.array_equal(np.asarray(frames, float), plan.frames) and all(b in heads for b in plan.bones):
             samples = samples_from(plan, {b: heads[b] for b in plan.bones}, {b: tails[b] for b in plan.bones})
             warnings = plan.warnings
-            refine = make_refine(obj, scene, plan, settings.samples_per_frame) if plan.feet else None
+            refine = None
+            if plan.feet and not keys_are_dense(obj, plan.frames[0], plan.frames[-1]):
+                refine = make_refine(obj, scene, plan, settings.samples_per_frame)
     if samples is None:
         samples, warnings, refine = body_samples(obj, scene, settings, progress)
     result = analyse_body(samples, settings.analysis_settings(), refine=refine)

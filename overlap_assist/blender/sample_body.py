@@ -152,8 +152,9 @@ def samples_from(plan, heads, tails):
         lm = segs.landmark_positions(plan.roles, heads, tails)
         body, _ = segs.whole_body_com(plan.table, lm)
         arms, arm_mass = segs.whole_body_com(plan.table, lm, only=segs.ARM_SEGMENTS)
-        rest_names = [s.name for s in plan.table.segments if s.name not in segs.ARM_SEGMENTS]
-        rest, _ = segs.whole_body_com(plan.table, lm, only=rest_names)
+        # The arms swing against the trunk and head: the legs extend in the push-off and fold in
+        # the landing while the arms ride on the trunk, so they are left out of the reference.
+        rest, _ = segs.whole_body_com(plan.table, lm, only=("trunk", "head_neck"))
         kw = dict(arm_com_m=arms, rest_com_m=rest, arm_mass_fraction=arm_mass)
     else:
         body = heads[plan.body_bone]
@@ -255,6 +256,32 @@ def sample_bones(obj, scene, bone_names, frames, progress=None):
             {n: tails[:, i] for i, n in enumerate(bone_names)})
 
 
+def keys_are_dense(obj, start, end):
+    """True when the animated curves have a key on every frame (or more often) in start..end.
+
+    Such keys are samples of motion (capture, a bake, a simulation): the Bézier interpolation
+    between them smooths corners such as takeoff over a frame, so events are read from the keyed
+    samples themselves; sparse keys are the animator's poses and their interpolation is the motion.
+    """
+    from .anim_data import active_fcurves
+    ad = obj.animation_data
+    if ad is None or ad.action is None:
+        return False
+    bag = active_fcurves(obj)
+    spacings = []
+    for fc in (bag.fcurves if bag is not None else []):
+        n = len(fc.keyframe_points)
+        if n < 3:
+            continue
+        co = np.empty(2 * n, dtype=np.float32)
+        fc.keyframe_points.foreach_get("co", co)
+        f = co[0::2]
+        f = f[(f >= start - 1) & (f <= end + 1)]
+        if f.size >= 3:
+            spacings.append(float(np.median(np.diff(f))))
+    return bool(spacings) and float(np.median(spacings)) <= 1.0 + 1e-6
+
+
 def body_samples(obj, scene, settings, progress=None):
     """Sample ``obj`` as the analysis needs it (whole frames).
 
@@ -265,6 +292,7 @@ def body_samples(obj, scene, settings, progress=None):
         heads, tails = sample_bones(obj, scene, plan.bones, plan.frames, progress)
     samples = samples_from(plan, heads, tails)
     refine = None
-    if plan.feet and not settings.spline_blocked_keys:
+    if plan.feet and not settings.spline_blocked_keys and \
+            not keys_are_dense(obj, plan.frames[0], plan.frames[-1]):
         refine = make_refine(obj, scene, plan, settings.samples_per_frame)
     return samples, plan.warnings, refine

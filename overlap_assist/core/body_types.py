@@ -29,7 +29,8 @@ class MotionSamples:
     unit_scale : float
         Metres per Blender unit the samples were converted with (reported back).
     arm_com_m, rest_com_m : ndarray, shape (n, 3), optional
-        CoM of both arms and of the rest of the body (for the arm-swing timing), metres.
+        CoM of both arms and of the body they swing against (trunk and head; for the arm-swing
+        timing), metres.
     arm_mass_fraction : float
         Share of body mass in the arms (from the segment table).
     foot_points_m : ndarray, shape (n_feet, k, n, 3), optional

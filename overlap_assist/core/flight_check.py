@@ -123,7 +123,9 @@ def arm_swing_timing(t_s, arm_com_m, rest_com_m, arm_mass_fraction, gravity_mps2
     up = up_axis(gravity_mps2)
     rel = (arm_com_m - rest_com_m) @ up
     v_rel = savgol_derivative(rel, window, order, 1, dt_s)
-    sel = np.flatnonzero((t_s >= search_from_s) & (t_s <= touchdown_s))
+    # Up to mid-flight: a swing that peaks later is no longer part of the jump (the landing's
+    # own arm motion follows).
+    sel = np.flatnonzero((t_s >= search_from_s) & (t_s <= 0.5 * (takeoff_s + touchdown_s)))
     if sel.size == 0:
         return float("nan"), 0.0
     peak_i = sel[np.argmax(v_rel[sel])]

@@ -171,25 +171,40 @@ def crossing_time(t_s, z_m, level_m, rising: bool) -> float:
 
 def _leave_time(t_s, z, i_contact, level, tol, rising):
     """Sub-sample time the lowest point passes ``level + event`` next to contact sample ``i_contact``
-    (rising: leaving after it; else arriving before it). Extrapolates the first airborne samples
-    back when the crossing lies inside the first airborne step."""
+    (rising: leaving after it; else arriving before it).
+
+    The crossing lies in the step from the contact sample to the first airborne one; the path of
+    the airborne foot is extrapolated back into that step with the parabola through the first
+    three airborne samples (a foot carried through the air by a ballistic body follows one), or
+    the line through two when fewer are airborne."""
     n = t_s.size
     step = 1 if rising else -1
-    j1, j2 = i_contact + step, i_contact + 2 * step
-    if not (0 <= j1 < n):
+    j = [i_contact + k * step for k in (1, 2, 3)]
+    if not (0 <= j[0] < n):
         return float(t_s[i_contact])
     target = level + tol.event_m
-    z0, z1 = z[i_contact], z[j1]
+    z0, z1 = z[i_contact], z[j[0]]
     if z0 >= target:
         return float(t_s[i_contact])
-    est = float(t_s[i_contact] + (t_s[j1] - t_s[i_contact]) * (target - z0) / (z1 - z0)) if z1 > z0 else float(t_s[j1])
-    if 0 <= j2 < n and z[j2] > z1 > target:
-        # The airborne foot moves almost uniformly over one sample: extrapolate its path back.
-        slope = (z[j2] - z1) / (t_s[j2] - t_s[j1])
-        back = float(t_s[j1] - (z1 - target) / slope)
-        lo, hi = sorted((float(t_s[i_contact]), float(t_s[j1])))
-        est = float(np.clip(back, lo, hi))
-    return est
+    # Samples above the event level are airborne; their path is followed back to the support
+    # itself (not to the event level, which would place the event late by event / speed).
+    target = max(level, z0)
+    lo, hi = sorted((float(t_s[i_contact]), float(t_s[j[0]])))
+    est = float(t_s[i_contact] + (t_s[j[0]] - t_s[i_contact]) * (target - z0) / (z1 - z0)) if z1 > z0 \
+        else float(t_s[j[0]])
+    ok = [k for k in j if 0 <= k < n]
+    if len(ok) >= 2 and z[ok[1]] > z1 > level + tol.event_m:
+        slope = (z[ok[1]] - z1) / (t_s[ok[1]] - t_s[j[0]])
+        est = float(t_s[j[0]] - (z1 - target) / slope)
+        if len(ok) == 3 and z[ok[2]] > z[ok[1]]:
+            tt = np.array([t_s[k] for k in ok]) - t_s[j[0]]
+            c = np.polyfit(tt, np.array([z[k] for k in ok]) - target, 2)
+            roots = np.roots(c) if abs(c[0]) > 1e-12 else np.roots(c[1:])
+            roots = roots[np.isreal(roots)].real + t_s[j[0]]
+            inside = [r for r in roots if lo - 1e-9 <= r <= hi + 1e-9]
+            if inside:
+                est = float(min(inside, key=lambda r: abs(r - t_s[j[0]])))
+    return float(np.clip(est, lo, hi))
 
 
 def airborne_from_contact(t_s, feet, tol: ContactTolerances, min_flight_s: float, refine=None):

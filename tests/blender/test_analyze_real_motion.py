@@ -1,0 +1,233 @@
+"""Analyze Body Motion in real Blender on motion keyed the way real animation is: every frame,
+Blender's automatic handles, feet planted by their own bones, drops, a stand-up after the
+landing, and a Rigify-generated human rig keyed on its controls.
+
+References: exact events of piecewise-constant accelerations (kinematics); apex h = v^2/2g
+(Bosco, Luhtanen & Komi 1983); in flight the load is 0 (Newton's second law, Linthorne 2001).
+"""
+import json
+import pathlib
+import sys
+
+import bpy
+import numpy as np
+import pytest
+from blender_helpers import action_digest, op
+
+sys.path.insert(0, str(pathlib.Path(__file__).resolve().parents[1] / "core"))
+from jump_paths import feet_for, piecewise, stand_up_pieces  # noqa: E402
+
+from overlap_assist.blender import anim_data  # noqa: E402
+from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_location  # noqa: E402
+from overlap_assist.core.constants import STANDARD_GRAVITY_MPS2 as G0  # noqa: E402
+from overlap_assist.core.jump_curves import JumpSpec, jump_events, jump_position  # noqa: E402
+
+# The stick rig with feet that have their own keys (as IK feet do) and toes.
+PLANTED_BONES = tuple((n, None if n.startswith("foot") else p, h, t) for n, p, h, t in HUMANOID_BONES) + (
+    ("toe.L", "foot.L", (0.10, -0.15, 0.0), (0.10, -0.22, 0.0)),
+    ("toe.R", "foot.R", (-0.10, -0.15, 0.0), (-0.10, -0.22, 0.0)),
+)
+
+
+def set_auto_handles(obj):
+    """Blender's automatic handles on every key (what a per-frame bake or capture import gives)."""
+    auto = bpy.types.Keyframe.bl_rna.properties["handle_left_type"].enum_items["AUTO"].value
+    for fc in anim_data.active_fcurves(obj).fcurves:
+        n = len(fc.keyframe_points)
+        fc.keyframe_points.foreach_set("handle_left_type", np.full(n, auto, dtype=np.int32))
+        fc.keyframe_points.foreach_set("handle_right_type", np.full(n, auto, dtype=np.int32))
+        fc.update()
+
+
+def key_path(obj, frames, body_z, foot_z=None, body_x=None, z_rest=None):
+    """Key the hips (body) and, when given, both feet per frame; offsets from the rest pose (m),
+    the hips' rest height standing for ``z_rest`` of the path (default: its first height)."""
+    rest = np.array(obj.data.bones["hips"].head_local)
+    pos = np.tile(rest, (frames.size, 1))
+    pos[:, 2] += body_z - (body_z[0] if z_rest is None else z_rest)
+    if body_x is not None:
+        pos[:, 0] += body_x
+    key_location(obj, "hips", frames, pos)
+    if foot_z is not None:
+        for side in ("L", "R"):
+            head = np.array(obj.data.bones[f"foot.{side}"].head_local)
+            fp = np.tile(head, (frames.size, 1))
+            fp[:, 2] += foot_z
+            key_location(obj, f"foot.{side}", frames, fp)
+    set_auto_handles(obj)
+    bpy.context.scene.frame_start, bpy.context.scene.frame_end = int(frames[0]), int(frames[-1])
+
+
+def setup(fps, fps_base=1.0, bones=PLANTED_BONES):
+    scene = bpy.context.scene
+    scene.render.fps, scene.render.fps_base = fps, fps_base
+    scene.gravity = (0.0, 0.0, -G0)
+    return scene, build_armature("Hero", bones=bones)
+
+
+def summary_of(obj):
+    assert op(obj, "analyze_motion") == {'FINISHED'}
+    return json.loads(obj.overlap_assist.body.last_summary)
+
+
+@pytest.mark.parametrize("fps,fps_base", [(24, 1.0), (30, 1.001), (60, 1.0)])
+@pytest.mark.parametrize("kind", ["squat", "countermovement"])
+def test_per_frame_keyed_jumps_with_automatic_handles(fps, fps_base, kind):
+    scene, obj = setup(fps, fps_base)
+    fps_eff = fps / fps_base
+    spec = JumpSpec(unweight_s=0.0) if kind == "squat" else JumpSpec()
+    ev = jump_events(spec)
+    frames = 1.0 + np.arange(int(ev["duration_s"] * fps_eff) + 1)
+    t = (frames - 1) / fps_eff
+    pos = jump_position(spec, t)
+    feet = feet_for(t, pos[:, 2], [(ev["takeoff_s"], ev["touchdown_s"])], [(0.0, 0.0)])
+    key_path(obj, frames, pos[:, 2], feet[0, 0, :, 2])
+    before = action_digest(obj.animation_data.action, "pose.bones")
+    s = summary_of(obj)
+    assert s["body_source"] == "com" and s["airborne_from"] == "feet"
+    assert sorted(s["contact_feet"]) == ["foot.L", "foot.R"]
+    (fl,) = s["flights"]
+    assert fl["kind"] == "jump"
+    assert fl["takeoff_frame"] == pytest.approx(1 + ev["takeoff_s"] * fps_eff, abs=0.5)
+    assert fl["touchdown_frame"] == pytest.approx(1 + ev["touchdown_s"] * fps_eff, abs=0.5)
+    # The CoM includes the feet, which keep still until takeoff; in flight it is one parabola.
+    assert fl["apex_height_m"] == pytest.approx(ev["takeoff_speed_mps"] ** 2 / (2 * G0), rel=0.03)
+    fc = anim_data.active_fcurves(obj).fcurves.find('["overlap_load_g"]')
+    mid = [f for f in frames if fl["takeoff_frame"] + 1 < f < fl["touchdown_frame"] - 1]
+    assert max(abs(fc.evaluate(f)) for f in mid) < 0.05
+    assert action_digest(obj.animation_data.action, "pose.bones") == before
+
+
+def test_stand_up_after_landing_is_one_flight_on_a_rig():
+    # The hips carry everything (feet move with them): the body's path decides.
+    scene, obj = setup(24, bones=HUMANOID_BONES)
+    v_to = 1.4 * G0 * 0.22
+    land_a = v_to**2 / (2 * 0.25)
+    pieces = [(0.5, 0.0), (0.25, -0.6 * G0), (0.125, 1.2 * G0), (0.22, 1.4 * G0), (2 * v_to / G0, -G0),
+              (v_to / land_a, land_a), (0.1, 0.0), *stand_up_pieces(0.25, 0.5), (0.5, 0.0)]
+    total = sum(p[0] for p in pieces)
+    frames = 1.0 + np.arange(int(total * 24) + 1)
+    z, starts = piecewise(pieces, (frames - 1) / 24)
+    key_path(obj, frames, z)
+    obj.overlap_assist.body.body_source = "ROOT"
+    s = summary_of(obj)
+    assert s["airborne_from"] == "body path"
+    (fl,) = s["flights"]
+    assert fl["takeoff_frame"] == pytest.approx(1 + starts[4] * 24, abs=0.5)
+    assert fl["touchdown_frame"] == pytest.approx(1 + starts[5] * 24, abs=0.5)
+    assert sorted(m.name for m in scene.timeline_markers) == ["apex", "takeoff", "touchdown"]
+
+
+def test_drop_from_a_ledge_then_rebound_jump_on_a_rig():
+    scene, obj = setup(24)
+    t_fall = np.sqrt(2 * 0.3 / G0)
+    v_to = 1.4 * G0 * 0.22
+    pieces = [(0.5, 0.0), (t_fall, -G0), (G0 * t_fall / (3 * G0), 3 * G0), (0.22, 1.4 * G0), (2 * v_to / G0, -G0),
+              (v_to / (3 * G0), 3 * G0), (0.1, 0.0), *stand_up_pieces(0.15, 0.5), (0.5, 0.0)]
+    total = sum(p[0] for p in pieces)
+    frames = 1.0 + np.arange(int(total * 24) + 1)
+    t = (frames - 1) / 24
+    z, starts = piecewise(pieces, t, z0=1.3)
+    events = [(starts[1], starts[2]), (starts[4], starts[5])]
+    feet = feet_for(t, z, events, [(0.3, 0.0), (0.0, 0.0)])
+    key_path(obj, frames, z, feet[0, 0, :, 2], z_rest=1.0)   # the rest pose stands on the floor
+    s = summary_of(obj)
+    assert [f["kind"] for f in s["flights"]] == ["drop", "jump"]
+    for fl, (t_to, t_td) in zip(s["flights"], events):
+        assert fl["takeoff_frame"] == pytest.approx(1 + t_to * 24, abs=0.5)
+        assert fl["touchdown_frame"] == pytest.approx(1 + t_td * 24, abs=0.5)
+    names = sorted(m.name for m in scene.timeline_markers)
+    assert names == ["apex 2", "drop 1", "takeoff 2", "touchdown 1", "touchdown 2"]
+    assert s["flights"][0]["retime_frames"] is None
+
+
+# ---------------------------------------------------------------- a Rigify-generated human rig
+
+def rigify_rig():
+    import addon_utils
+    addon_utils.enable("rigify", default_set=True, persistent=False)
+    bpy.ops.object.armature_human_metarig_add()
+    bpy.ops.pose.rigify_generate()
+    rig = bpy.context.active_object
+    assert rig.type == 'ARMATURE' and "DEF-spine.006" in rig.data.bones
+    return rig
+
+
+def key_control(rig, name, frames, offsets_m):
+    """Key a control's location so its head moves by world ``offsets_m`` from the rest pose (its
+    parents stay at rest). Blender's own space conversion maps a pose-space move to the
+    control's location channels (controls may use local or parent-space location)."""
+    from mathutils import Matrix
+    from overlap_assist.blender import anim_data
+    pb = rig.pose.bones[name]
+    rest = rig.data.bones[name].matrix_local.copy()
+
+    def local_loc(d):
+        m = rest.copy()
+        m.translation = rest.translation + Matrix.Identity(3) @ __import__("mathutils").Vector(d)
+        return np.array(rig.convert_space(pose_bone=pb, matrix=m, from_space='POSE', to_space='LOCAL').translation)
+    base = local_loc((0, 0, 0))
+    cols = np.stack([local_loc(e) - base for e in np.eye(3)], axis=1)
+    locs = base + offsets_m @ cols.T
+    bag = anim_data.active_fcurves(rig, create=True)
+    for axis in range(3):
+        fc = anim_data.ensure_fcurve(bag, pb.path_from_id("location"), axis, name)
+        anim_data.write_keys(fc, frames, locs[:, axis], 'BEZIER')
+
+
+def test_rigify_rig_keyed_on_its_controls():
+    scene = bpy.context.scene
+    scene.render.fps = 24
+    scene.gravity = (0.0, 0.0, -G0)
+    rig = rigify_rig()
+    spec = JumpSpec()
+    ev = jump_events(spec)
+    frames = 1.0 + np.arange(int(ev["duration_s"] * 24) + 1)
+    t = (frames - 1) / 24
+    body = jump_position(spec, t) - [0, 0, spec.start_height_m]
+    feet = feet_for(t, body[:, 2], [(ev["takeoff_s"], ev["touchdown_s"])], [(0.0, 0.0)])
+    zero = np.zeros((frames.size, 3))
+    key_control(rig, "torso", frames, body)
+    for side in ("L", "R"):
+        fo = zero.copy()
+        fo[:, 2] = feet[0, 0, :, 2]
+        key_control(rig, f"foot_ik.{side}", frames, fo)
+        # Hands swing up 0.35 m relative to the body, fastest 0.15 s before takeoff.
+        swing = 0.35 / (1 + np.exp(-(t - (ev["takeoff_s"] - 0.15)) / 0.04))
+        ho = body.copy()
+        ho[:, 2] += swing
+        key_control(rig, f"hand_ik.{side}", frames, ho)
+    set_auto_handles(rig)
+    scene.frame_start, scene.frame_end = 1, int(frames[-1])
+    before = action_digest(rig.animation_data.action, "pose.bones")
+    s = summary_of(rig)
+    assert s["body_source"] == "com"
+    assert not any("center of mass needs" in w or "root bone" in w for w in s["warnings"])
+    assert s["airborne_from"] == "feet" and sorted(s["contact_feet"]) == ["DEF-foot.L", "DEF-foot.R"]
+    (fl,) = s["flights"]
+    assert fl["takeoff_frame"] == pytest.approx(1 + ev["takeoff_s"] * 24, abs=0.5)
+    assert fl["touchdown_frame"] == pytest.approx(1 + ev["touchdown_s"] * 24, abs=0.5)
+    # Arm swing reported before takeoff; the arms' CoM follows the hands through the IK, so its
+    # fastest rise is within 2 frames of the hands' (0.15 s = 3.6 frames before takeoff).
+    assert fl["arm_swing_offset_frames"] == pytest.approx(-0.15 * 24, abs=2.0)
+    assert fl["late_arm_swing"] is False
+    assert action_digest(rig.animation_data.action, "pose.bones") == before
+    names = [p["name"] for p in s["phases"]]
+    assert names[:5] == ["quiet stance", "unweighting", "braking", "propulsion", "flight"]
+
+    # The same jump carried by the armature object instead of a bone.
+    bag = anim_data.active_fcurves(rig)
+    for fc in list(bag.fcurves):
+        if fc.data_path.startswith("pose.bones"):
+            bag.fcurves.remove(fc)
+    base = np.array(rig.location)
+    for axis in range(3):
+        fc = anim_data.ensure_fcurve(bag, "location", axis, "Object Transforms")
+        anim_data.write_keys(fc, frames, base[axis] + body[:, axis], 'BEZIER')
+    set_auto_handles(rig)
+    s = summary_of(rig)
+    assert s["body_source"] == "com"
+    (fl,) = s["flights"]
+    assert fl["takeoff_frame"] == pytest.approx(1 + ev["takeoff_s"] * 24, abs=0.5)
+    assert fl["touchdown_frame"] == pytest.approx(1 + ev["touchdown_s"] * 24, abs=0.5)
+    assert fl["apex_height_m"] == pytest.approx(ev["apex_height_m"], rel=0.03)
