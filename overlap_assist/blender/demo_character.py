@@ -467,7 +467,6 @@ def build_clip(jump: DemoJump, fps=24, render_size=(320, 400)):
     dress(rig, scene.collection)
     rig.hide_render = True
     setup_chains(rig, fps)
-    rig.overlap_assist.body.body_source = 'COM'
     build_set(scene, scene.collection, perf["land_x"], frames, perf["com"][:, 0])
     setup_render(scene, *render_size)
     scene.frame_set(scene.frame_start)

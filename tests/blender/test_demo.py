@@ -60,6 +60,10 @@ def test_the_flawed_clip_is_flagged_and_the_good_one_is_not(demo):
         assert abs(bad["horizontal_accel_mps2"] - spec.flight_forward_accel_mps2) < 0.2
     assert any("floaty" in line for line in demo["summary_lines"])
     assert "plausibility" in saved["caution"]
+    # The default body source (Automatic) takes the CoM of the demo character; its feet are planted.
+    for clip in saved["clips"].values():
+        assert clip["analysis"]["body_source"] == "com" and clip["analysis"]["airborne_from"] == "feet"
+        assert [f["kind"] for f in clip["analysis"]["flights"]] == ["jump"]
 
 
 def test_every_chain_is_baked_with_fewer_keys_and_counts_add_up(demo):
@@ -120,7 +124,7 @@ def test_the_blend_reopens_with_both_scenes_and_the_bake_layer(demo):
         track = rig.animation_data.nla_tracks.get("Overlap Bake")
         assert track is not None and len(track.strips) == 1
         assert [c.name for c in rig.overlap_assist.chains] == [c[0] for c in CHAINS]
-        assert rig.overlap_assist.body.body_source == 'COM'
+        assert rig.overlap_assist.body.body_source == 'AUTO'   # the default: CoM when matched
         assert {"takeoff", "apex", "touchdown"} <= {m.name for m in scene.timeline_markers}
         assert scene.camera is not None and scene.render.engine == 'BLENDER_WORKBENCH'
         assert sum(1 for o in scene.objects if o.type == 'MESH' and o.parent is rig) > 20
