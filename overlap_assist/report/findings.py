@@ -119,8 +119,12 @@ def clip_findings(analysis: dict):
             if abs(as_float(land.get("frame")) - td) < 0.5:
                 items.append(("note", landing_finding(land)))
                 landings.remove(land)
-        heading = (f"Jump {k + 1}: takeoff frame {num(as_float(fl.get('takeoff_frame')), 1)}, "
-                   f"touchdown frame {num(td, 1)}")
+        if fl.get("kind") == "drop":
+            heading = (f"Drop {k + 1}: leaves the support at frame {num(as_float(fl.get('takeoff_frame')), 1)}, "
+                       f"touchdown frame {num(td, 1)}")
+        else:
+            heading = (f"Jump {k + 1}: takeoff frame {num(as_float(fl.get('takeoff_frame')), 1)}, "
+                       f"touchdown frame {num(td, 1)}")
         groups.append((heading, items))
     if landings:
         groups.append(("Other landings", [("note", landing_finding(x)) for x in landings]))

@@ -231,3 +231,67 @@ def test_rigify_rig_keyed_on_its_controls():
     assert fl["takeoff_frame"] == pytest.approx(1 + ev["takeoff_s"] * 24, abs=0.5)
     assert fl["touchdown_frame"] == pytest.approx(1 + ev["touchdown_s"] * 24, abs=0.5)
     assert fl["apex_height_m"] == pytest.approx(ev["apex_height_m"], rel=0.03)
+
+
+# ---------------------------------------------------------------- contact bones, overrides, bad input
+
+RENAMED_FEET = tuple((("Sole_Left" if n == "foot.L" else "Sole_Right" if n == "foot.R" else n),
+                      ("Sole_Left" if p == "foot.L" else "Sole_Right" if p == "foot.R" else p), h, t)
+                     for n, p, h, t in PLANTED_BONES if not n.startswith("toe"))
+
+
+def test_contact_bones_setting_names_feet_the_names_do_not_reveal():
+    scene, obj = setup(24, bones=RENAMED_FEET)
+    spec = JumpSpec()
+    ev = jump_events(spec)
+    frames = 1.0 + np.arange(int(ev["duration_s"] * 24) + 1)
+    t = (frames - 1) / 24
+    pos = jump_position(spec, t)
+    feet = feet_for(t, pos[:, 2], [(ev["takeoff_s"], ev["touchdown_s"])], [(0.0, 0.0)])
+    key_path(obj, frames, pos[:, 2])
+    for name in ("Sole_Left", "Sole_Right"):
+        head = np.array(obj.data.bones[name].head_local)
+        fp = np.tile(head, (frames.size, 1))
+        fp[:, 2] += feet[0, 0, :, 2]
+        key_location(obj, name, frames, fp)
+    set_auto_handles(obj)
+    s = summary_of(obj)
+    assert s["airborne_from"] == "body path" and s["body_source"] == "root"
+    obj.overlap_assist.body.contact_bones = "Sole_Left, Sole_Right"
+    s = summary_of(obj)
+    assert s["airborne_from"] == "feet" and sorted(s["contact_feet"]) == ["Sole_Left", "Sole_Right"]
+    (fl,) = s["flights"]
+    assert fl["takeoff_frame"] == pytest.approx(1 + ev["takeoff_s"] * 24, abs=0.5)
+    # A bone that does not exist: a clear error, and the last result stays as it was.
+    last = obj.overlap_assist.body.last_summary
+    obj.overlap_assist.body.contact_bones = "Sole_Left, Heel_Nowhere"
+    with pytest.raises(RuntimeError, match="contact bones not in 'Hero': Heel_Nowhere"):
+        op(obj, "analyze_motion")
+    assert obj.overlap_assist.body.last_summary == last
+
+
+def test_cli_contact_override_and_body_options(tmp_path):
+    from blender_helpers import run_cli
+    from overlap_assist.blender.demo_scene import key_jump
+    scene = bpy.context.scene
+    scene.gravity = (0.0, 0.0, -G0)
+    no_hands = tuple(b for b in HUMANOID_BONES if not b[0].startswith("hand"))
+    obj = build_armature("Handless", bones=no_hands)
+    key_jump(obj, JumpSpec())
+    path = str(tmp_path / "handless.blend")
+    bpy.ops.wm.save_as_mainfile(filepath=path)
+    proc = run_cli("analyze", path, "--json")
+    d = json.loads(proc.stdout)
+    assert proc.returncode == 0 and d["body_source"] == "root" and len(d["flights"]) == 1
+    proc = run_cli("analyze", path, "--json", "--override", "hand.L=forearm.L", "--override", "hand.R=forearm.R",
+                   "--contact", "foot.L,foot.R")
+    d = json.loads(proc.stdout)
+    assert proc.returncode == 0 and d["body_source"] == "com", proc.stderr
+    assert len(d["flights"]) == 1
+    for args, fragment in ((("--override", "hand.L"), "must be ROLE=BONE"),
+                           (("--override", "paw.L=forearm.L"), "unknown role 'paw.L'"),
+                           (("--override", "hand.L=Nope"), "bone 'Nope' is not in"),
+                           (("--contact", "foot.L,Nope"), "--contact names bones that are not in")):
+        proc = run_cli("analyze", path, *args)
+        assert proc.returncode == 2 and fragment in proc.stderr and "Traceback" not in proc.stderr
+        assert proc.stdout == ""
