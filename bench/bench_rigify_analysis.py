@@ -119,7 +119,9 @@ def main():
         for name in ("floor", "analyze", "simulate"):
             print(f"  {name:8s} {med[name] * 1e3:8.1f} ms  = {med[name] / med['floor']:4.2f}x floor")
     finally:
+        import addon_utils
         overlap_assist.unregister()
+        addon_utils.disable("rigify")  # Blender 4.5 hangs at exit with add-on classes registered
         bpy.ops.wm.read_factory_settings(use_empty=True)
 
 

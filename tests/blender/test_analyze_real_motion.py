@@ -143,9 +143,17 @@ def test_drop_from_a_ledge_then_rebound_jump_on_a_rig():
 
 # ---------------------------------------------------------------- a Rigify-generated human rig
 
-def rigify_rig():
+@pytest.fixture
+def rigify():
+    """Blender's bundled Rigify, enabled for the test and disabled after it (Blender 4.5 hangs at
+    exit while add-on classes stay registered)."""
     import addon_utils
     addon_utils.enable("rigify", default_set=True, persistent=False)
+    yield
+    addon_utils.disable("rigify")
+
+
+def rigify_rig():
     bpy.ops.object.armature_human_metarig_add()
     bpy.ops.pose.rigify_generate()
     rig = bpy.context.active_object
@@ -175,7 +183,7 @@ def key_control(rig, name, frames, offsets_m):
         anim_data.write_keys(fc, frames, locs[:, axis], 'BEZIER')
 
 
-def test_rigify_rig_keyed_on_its_controls():
+def test_rigify_rig_keyed_on_its_controls(rigify):
     scene = bpy.context.scene
     scene.render.fps = 24
     scene.gravity = (0.0, 0.0, -G0)

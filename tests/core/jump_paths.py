@@ -112,7 +112,7 @@ def feet_for(t_s, body_z, events, supports, spread_m=0.2, foot_len_m=0.2):
     with ``supports`` [(h_before, h_after)] the ground heights under the feet at each event."""
     t_s = np.asarray(t_s, float)
     zb = np.interp(t_s, t_s, body_z)
-    fz = np.full(t_s.size, supports[0][0] if supports else 0.0)
+    fz = np.full(t_s.size, float(supports[0][0]) if supports else 0.0)
     for (t_to, t_td), (h0, h1) in zip(events, supports):
         z_to = np.interp(t_to, t_s, zb)
         z_td = np.interp(t_td, t_s, zb)
