@@ -303,3 +303,45 @@ def test_cli_contact_override_and_body_options(tmp_path):
         proc = run_cli("analyze", path, *args)
         assert proc.returncode == 2 and fragment in proc.stderr and "Traceback" not in proc.stderr
         assert proc.stdout == ""
+
+
+def test_sparse_keys_place_contact_events_between_frames_as_blender_evaluates_them():
+    # Keys every 3 frames (an animator's poses, Blender's default automatic clamped handles): the
+    # interpolation is the motion, so the feet are sampled at sub-frames around each contact
+    # change. Reference: Blender's own evaluation of the foot's curve, 400 samples per frame.
+    from overlap_assist.core.foot_contact import ContactTolerances
+    scene, obj = setup(24)
+    spec = JumpSpec()
+    ev = jump_events(spec)
+    frames = 1.0 + np.arange(0, int(ev["duration_s"] * 24) + 1, 3)
+    t = (frames - 1) / 24
+    pos = jump_position(spec, t)
+    dense_t = np.linspace(0, t[-1], 4000)
+    feet = feet_for(dense_t, jump_position(spec, dense_t)[:, 2], [(ev["takeoff_s"], ev["touchdown_s"])], [(0.0, 0.0)])
+    foot_z = np.interp(t, dense_t, feet[0, 0, :, 2])
+    rest = np.array(obj.data.bones["hips"].head_local)
+    hp = np.tile(rest, (frames.size, 1))
+    hp[:, 2] += pos[:, 2] - pos[0, 2]
+    key_location(obj, "hips", frames, hp)
+    for side in ("L", "R"):
+        fp = np.tile(np.array(obj.data.bones[f"foot.{side}"].head_local), (frames.size, 1))
+        fp[:, 2] += foot_z
+        key_location(obj, f"foot.{side}", frames, fp)
+    scene.frame_start, scene.frame_end = 1, int(frames[-1])
+    s = summary_of(obj)
+    assert s["airborne_from"] == "feet"
+    (fl,) = s["flights"]
+    leg = np.linalg.norm(np.array(obj.data.bones["thigh.L"].head_local) - np.array(obj.data.bones["foot.L"].head_local))
+    level = ContactTolerances.for_leg(leg, G0).event_m
+    fc = anim_data.active_fcurves(obj).fcurves.find('pose.bones["foot.L"].location', index=2)
+    fr = np.linspace(1, frames[-1], int((frames[-1] - 1) * 400) + 1)
+    # Rest frame of the foot bone maps pose z to world z up to a sign: read it from the rest matrix.
+    axis = np.array(obj.data.bones["foot.L"].matrix_local)[:3, :3] @ np.eye(3)
+    fcs = [anim_data.active_fcurves(obj).fcurves.find('pose.bones["foot.L"].location', index=i) for i in range(3)]
+    local = np.array([[c.evaluate(f) for c in fcs] for f in fr])
+    world_z = local @ axis[2]
+    up = np.flatnonzero((world_z[:-1] <= level) & (world_z[1:] > level))
+    down = np.flatnonzero((world_z[:-1] > level) & (world_z[1:] <= level))
+    assert fc is not None and up.size == 1 and down.size == 1
+    assert fl["takeoff_frame"] == pytest.approx(fr[up[0]], abs=0.125)
+    assert fl["touchdown_frame"] == pytest.approx(fr[down[0]], abs=0.125)
