@@ -254,3 +254,32 @@ def test_force_curve_jumps(fps, kind, with_feet):
     mid = (t > d["takeoff_s"] + 2 * dt_frame) & (t < d["touchdown_s"] - 2 * dt_frame)
     np.testing.assert_allclose(res.load_factor[mid], 0.0, atol=0.05)
     FORCE_ERRORS[(kind, fps, with_feet)] = (err_to * fps, err_td * fps, fl.apex_height_m / d["h_v"] - 1, rms)
+
+
+def test_countermovement_is_found_from_the_descent_when_the_arms_swing():
+    # The arms (10 % of the mass) swing back and forth (3 Hz, 25 cm) through quiet stance and the
+    # dip, so the CoM load crosses 1 g several times; the phases follow the body's descent.
+    # Exact onset/braking/lowest of the piecewise-constant jump (kinematics).
+    spec = JumpSpec()
+    ev = jump_events(spec)
+    fps = 24.0
+    frames, t = per_frame(ev["duration_s"], fps)
+    body = jump_position(spec, t)
+    swing = np.where(t < ev["lowest_s"], 0.25 * np.sin(2 * np.pi * 3 * t) * np.clip(t / 0.3, 0, 1), 0.0)
+    swing *= np.clip((ev["lowest_s"] - t) / 0.15, 0, 1)
+    com = body.copy()
+    com[:, 2] += 0.1 * swing
+    load_quiet = 1 + 0.1 * 0.25 * (2 * np.pi * 3) ** 2 / G0      # peak load of the swing alone
+    assert load_quiet > 1.2                                         # the swing alone crosses 1 g often
+    feet = feet_for(t, com[:, 2], [(ev["takeoff_s"], ev["touchdown_s"])], [(0.0, 0.0)])
+    samples = MotionSamples(frames, fps, com, G_DOWN, "com", foot_points_m=feet, leg_length_m=0.9,
+                            arm_com_m=body + np.stack([0 * t, 0 * t, swing], 1), rest_com_m=body,
+                            arm_mass_fraction=0.1)
+    res = analyse_body(samples)
+    (fl,) = res.flights
+    ph = {p.name: p for p in res.phases}
+    assert [p.name for p in res.phases][:5] == ["quiet stance", "unweighting", "braking", "propulsion", "flight"]
+    # The swing shifts the descent by its own share; within 2 frames of the body's events.
+    assert ph["unweighting"].start_frame == pytest.approx(1 + ev["onset_s"] * fps, abs=2.0)
+    assert ph["braking"].start_frame == pytest.approx(1 + ev["braking_s"] * fps, abs=2.0)
+    assert ph["propulsion"].start_frame == pytest.approx(1 + ev["lowest_s"] * fps, abs=1.0)
