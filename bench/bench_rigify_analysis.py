@@ -50,14 +50,27 @@ def key_control(rig, name, frames, offsets_m):
         anim_data.write_keys(fc, frames, locs[:, axis], 'BEZIER')
 
 
+GENERATE_RIGIFY = """
+import bpy, addon_utils, os, sys
+bpy.ops.wm.read_factory_settings(use_empty=True)
+addon_utils.enable("rigify", default_set=True, persistent=False)
+bpy.ops.object.armature_human_metarig_add()
+bpy.ops.pose.rigify_generate()
+bpy.ops.wm.save_as_mainfile(filepath=sys.argv[-1])
+os._exit(0)   # Rigify's classes stay registered (Blender 4.5 would hang at exit)
+"""
+
+
 def build():
-    import addon_utils
-    addon_utils.enable("rigify", default_set=True, persistent=False)
+    """Generate the rig in its own process, open it with scripts off (no Rigify UI registered)."""
+    import subprocess
+    import tempfile
+    path = str(pathlib.Path(tempfile.mkdtemp()) / "rigify_human.blend")
+    subprocess.run([sys.executable, "-c", GENERATE_RIGIFY, path], check=True, capture_output=True, timeout=600)
+    bpy.ops.wm.open_mainfile(filepath=path, load_ui=False, use_scripts=False)
     scene = bpy.context.scene
     scene.render.fps = 24
-    bpy.ops.object.armature_human_metarig_add()
-    bpy.ops.pose.rigify_generate()
-    rig = bpy.context.active_object
+    rig = bpy.data.objects["rig"]
     spec = JumpSpec()
     ev = jump_events(spec)
     dur = ev["duration_s"]
@@ -119,9 +132,7 @@ def main():
         for name in ("floor", "analyze", "simulate"):
             print(f"  {name:8s} {med[name] * 1e3:8.1f} ms  = {med[name] / med['floor']:4.2f}x floor")
     finally:
-        import addon_utils
         overlap_assist.unregister()
-        addon_utils.disable("rigify")  # Blender 4.5 hangs at exit with add-on classes registered
         bpy.ops.wm.read_factory_settings(use_empty=True)
 
 
