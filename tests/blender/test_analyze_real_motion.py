@@ -15,7 +15,7 @@ import pytest
 from blender_helpers import action_digest, op
 
 sys.path.insert(0, str(pathlib.Path(__file__).resolve().parents[1] / "core"))
-from jump_paths import feet_for, piecewise, stand_up_pieces  # noqa: E402
+from jump_paths import feet_for, force_curve_jump, piecewise, stand_up_pieces  # noqa: E402
 
 from overlap_assist.blender import anim_data  # noqa: E402
 from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_location  # noqa: E402
@@ -96,6 +96,40 @@ def test_per_frame_keyed_jumps_with_automatic_handles(fps, fps_base, kind):
     mid = [f for f in frames if fl["takeoff_frame"] + 1 < f < fl["touchdown_frame"] - 1]
     assert max(abs(fc.evaluate(f)) for f in mid) < 0.05
     assert action_digest(obj.animation_data.action, "pose.bones") == before
+
+
+@pytest.mark.parametrize("fps", [24, 60])
+@pytest.mark.parametrize("kind", ["cmj", "sj"])
+def test_force_curve_jumps_keyed_on_a_rig(fps, kind):
+    # F(t) shaped as in the force-plate literature, integrated twice with a = F/m - g
+    # (impulse-momentum, Linthorne 2001; v = 0 in quiet stance, Owen et al. 2014), keyed per
+    # frame on the rig (hips and planted feet), analysed, and compared with the curve: takeoff and
+    # touchdown with the 20 N crossings (Harry et al. 2020), flight time and jump height
+    # (h = v^2/2g, h = g T^2/8, Bosco et al. 1983), the load curve with F / body weight.
+    scene, obj = setup(fps)
+    d = force_curve_jump(kind)
+    frames = 1.0 + np.arange(int((d["end_s"] - 0.01) * fps) + 1)
+    t = (frames - 1) / fps
+    feet = feet_for(d["t"], d["z"], [(d["takeoff_s"], d["touchdown_s"])], [(0.0, 0.0)])
+    key_path(obj, frames, np.interp(t, d["t"], d["z"]), np.interp(t, d["t"], feet[0, 0, :, 2]))
+    s = summary_of(obj)
+    assert s["airborne_from"] == "feet"
+    (fl,) = s["flights"]
+    assert (fl["takeoff_frame"] - 1) / fps == pytest.approx(d["takeoff_s"], abs=0.5 / fps)
+    assert (fl["touchdown_frame"] - 1) / fps == pytest.approx(d["touchdown_s"], abs=0.5 / fps)
+    assert fl["hang_time_s"] == pytest.approx(d["hang_s"], abs=1.0 / fps)
+    # The CoM of this rig includes feet that stay down until the 20 N crossing: its apex above
+    # takeoff matches both height formulas within 5 %.
+    assert fl["apex_height_m"] == pytest.approx(d["h_v"], rel=0.05)
+    assert fl["apex_height_m"] == pytest.approx(d["h_T"], rel=0.05)
+    fc = anim_data.active_fcurves(obj).fcurves.find('["overlap_load_g"]')
+    before = (t > 0.1) & (t < d["takeoff_s"] - 1.0 / fps)
+    tool = np.array([fc.evaluate(f) for f in frames[before]])
+    ref = np.interp(t[before], d["t"], d["F"] / d["bw"])
+    # The feet (2.9 % of the mass) stand still while the rest accelerates, so the CoM load is
+    # (1 - m_feet) of the body's plus m_feet: 0.15 g RMS leaves room for that and for sampling.
+    assert float(np.sqrt(np.mean((tool - ref) ** 2))) < 0.15
+    assert tool.max() == pytest.approx(ref.max(), abs=0.2)
 
 
 def test_stand_up_after_landing_is_one_flight_on_a_rig():
@@ -180,14 +214,13 @@ def key_control(rig, name, frames, offsets_m):
     """Key a control's location so its head moves by world ``offsets_m`` from the rest pose (its
     parents stay at rest). Blender's own space conversion maps a pose-space move to the
     control's location channels (controls may use local or parent-space location)."""
-    from mathutils import Matrix
-    from overlap_assist.blender import anim_data
+    from mathutils import Vector
     pb = rig.pose.bones[name]
     rest = rig.data.bones[name].matrix_local.copy()
 
     def local_loc(d):
         m = rest.copy()
-        m.translation = rest.translation + Matrix.Identity(3) @ __import__("mathutils").Vector(d)
+        m.translation = rest.translation + Vector(d)
         return np.array(rig.convert_space(pose_bone=pb, matrix=m, from_space='POSE', to_space='LOCAL').translation)
     base = local_loc((0, 0, 0))
     cols = np.stack([local_loc(e) - base for e in np.eye(3)], axis=1)
