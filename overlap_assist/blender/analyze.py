@@ -4,6 +4,7 @@ import json
 import bpy
 
 from ..core.body_analysis import analyse_body, analysis_to_dict
+from ..core import readout
 from ..core.errors import OverlapAssistError
 from . import anim_data
 from .selection import armature_poll
@@ -66,10 +67,10 @@ def summary_line(result):
         return f"No flight found; load {result.load_factor.min():.2f}–{result.load_factor.max():.2f} g"
     parts = []
     for fl in result.flights:
-        parts.append(f"takeoff {fl.takeoff_frame:.1f}, apex {fl.apex_frame:.1f}, touchdown {fl.touchdown_frame:.1f}: "
-                     f"hang {fl.hang_time_s:.2f} s, {fl.verdict}")
+        parts.append(f"takeoff {readout.frame(fl.takeoff_frame)}, apex {readout.frame(fl.apex_frame)}, "
+                     f"touchdown {readout.frame(fl.touchdown_frame)}: hang {fl.hang_time_s:.2f} s, {fl.verdict}")
     if result.landings:
-        parts.append(f"landing peak {max(x.peak_load_g for x in result.landings):.1f} g")
+        parts.append(f"landing peak {readout.load_g(max(x.peak_load_g for x in result.landings))}")
     return "; ".join(parts)
 
 
