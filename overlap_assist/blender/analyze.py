@@ -9,6 +9,7 @@ from ..core.errors import OverlapAssistError
 from . import anim_data
 from .selection import armature_poll
 from .sample_body import body_samples
+from .op_errors import guarded
 
 LOAD_PROPERTY = "overlap_load_g"
 """Custom property on the armature object whose F-curve shows the load factor."""
@@ -74,6 +75,7 @@ def summary_line(result):
     return "; ".join(parts)
 
 
+@guarded
 class OVERLAP_ASSIST_OT_analyze_motion(bpy.types.Operator):
     """Sample the rig's body motion and show the load it feels, its jump phases and a flight check"""
     bl_idname = "overlap_assist.analyze_motion"

@@ -12,7 +12,7 @@ from . import chain_props
 
 BODY_SOURCES = (
     ("ROOT", "Root bone", "Use one bone (the hips or root) as the body"),
-    ("COM", "Centre of mass", "Estimate the whole-body centre of mass from deform bones with a segment table"),
+    ("COM", "Center of mass", "Estimate the whole-body center of mass from deform bones with a segment table"),
 )
 SEGMENT_TABLES = (
     ("dempster", "Dempster (Winter 2009)", "Dempster 1955 cadaver data as tabulated by Winter 2009, Table 4.1"),
@@ -32,10 +32,10 @@ class OverlapAssistBodySettings(bpy.types.PropertyGroup):
                               description="Bone that carries the body (empty: a bone named like hips or pelvis, "
                                           "else the first top-level bone)")
     segment_table: EnumProperty(name="Segment table", items=SEGMENT_TABLES, default="dempster",
-                                description="Mass share and centre of mass of each body segment")
+                                description="Mass share and center of mass of each body segment")
     bone_overrides: StringProperty(
         name="Bone overrides", default="",
-        description="Manual bone choices for the centre of mass, e.g. 'thigh.L=LegUp_L, hand.R=Palm_R'")
+        description="Manual bone choices for the center of mass, e.g. 'thigh.L=LegUp_L, hand.R=Palm_R'")
     gravity_source: EnumProperty(name="Gravity", items=GRAVITY_SOURCES, default="SCENE",
                                  description="Which gravity the body motion is compared with")
     samples_per_frame: IntProperty(name="Samples per frame", default=C.SAMPLES_PER_FRAME, min=1, max=16,
@@ -48,10 +48,10 @@ class OverlapAssistBodySettings(bpy.types.PropertyGroup):
     flight_threshold: FloatProperty(name="Flight threshold (g)", default=C.FLIGHT_LOAD_MAX, min=0.05, max=0.95,
                                     description="Load below which the body may be airborne")
     spline_blocked_keys: BoolProperty(
-        name="Analyse blocked keys as splines", default=False,
+        name="Analyze blocked keys as splines", default=False,
         description="Evaluate stepped/constant keys as if they were Bézier, without changing the action")
     use_frame_range: BoolProperty(name="Custom range", default=False,
-                                  description="Analyse a chosen range instead of the scene's frame range")
+                                  description="Analyze a chosen range instead of the scene's frame range")
     frame_start: IntProperty(name="Start", default=1)
     frame_end: IntProperty(name="End", default=250)
     owned_markers: StringProperty(name="Markers", default="", options={'HIDDEN'},

@@ -158,7 +158,7 @@ def body_samples(obj, scene, settings, progress=None):
             raise InputError(f"override names bones that are not in '{obj.name}': {', '.join(missing_bones)}")
         needed = [r for r in segs.required_roles(table) if r not in roles]
         if needed:
-            warnings.append("centre of mass needs bones for: " + ", ".join(needed)
+            warnings.append("center of mass needs bones for: " + ", ".join(needed)
                             + f"; using the root bone '{body_bone}' instead (set Bone overrides)")
         else:
             source = "com"

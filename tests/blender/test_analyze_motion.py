@@ -77,7 +77,7 @@ def test_com_source_is_used_when_all_segments_match():
     analyze(obj)
     summary = json.loads(obj.overlap_assist.body.last_summary)
     assert summary["body_source"] == "com"
-    assert not any("centre of mass needs" in w for w in summary["warnings"])
+    assert not any("center of mass needs" in w for w in summary["warnings"])
 
 
 def test_low_gravity_jump_reads_floaty():
@@ -158,7 +158,7 @@ def test_unmatched_segments_are_listed_and_the_root_is_used():
     analyze(obj)
     summary = json.loads(obj.overlap_assist.body.last_summary)
     assert summary["body_source"] == "root"
-    (warning,) = [w for w in summary["warnings"] if "centre of mass needs" in w]
+    (warning,) = [w for w in summary["warnings"] if "center of mass needs" in w]
     assert "hand.L" in warning and "hand.R" in warning and "'hips'" in warning
     # A manual override fills the gap (here with the forearms, just to name existing bones).
     obj.overlap_assist.body.bone_overrides = "hand.L=forearm.L, hand.R=forearm.R"
