@@ -189,7 +189,7 @@ TAIL = (("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
         ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)))
 
 
-def test_stored_frame_ranges_are_honoured(tmp_path):
+def test_stored_frame_ranges_are_honored(tmp_path):
     # Before: simulate and bake used the scene's range, whatever range the file stored for the bake.
     bpy.context.scene.gravity = (0, 0, -9.80665)
     obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
