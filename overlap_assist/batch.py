@@ -20,6 +20,8 @@ import time
 import traceback
 
 STAMP_SUFFIX = ".stamp.json"
+EXIT_UNEXPECTED = 3
+"""A worker's exit status for an unexpected error (cli.EXIT_UNEXPECTED)."""
 WORKER_TIMEOUT_S = 1800
 """A single file that takes longer than this is stopped and reported (a hung or huge scene)."""
 
@@ -169,12 +171,13 @@ def run_one(prefix, path, out_dir, stem, preset_file, scene=None, armature=None)
             lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
             errors = [ln for ln in lines if "overlap_assist: error:" in ln]
             message = (errors or [f"the worker stopped with status {proc.returncode}"])[-1]
-            row["message"] = message.replace("overlap_assist: error: ", "")
+            message = message.replace("overlap_assist: error: ", "")
             text = _read(details)
-            if text or not errors:
+            if text or not errors or proc.returncode == EXIT_UNEXPECTED:
+                # Unexpected: one line in the table, the details (traceback, Blender's log) in batch_log.json.
                 row["details"] = text or (proc.stderr[-20000:] + proc.stdout[-2000:])
-                if not errors:
-                    row["message"] += f"; {BUG_HINT}"
+                message = f"{message.split('; this is a bug')[0]}; {BUG_HINT}"
+            row["message"] = message
             return row
         result = json.loads(proc.stdout.strip().splitlines()[-1])
         stamp["outputs"] = result["outputs"]

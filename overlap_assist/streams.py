@@ -1,6 +1,6 @@
 """The headless commands' own output: stdout carries our results, stderr only our lines.
 
-Blender writes its own log lines ("Read blend: ...", "Saved copy as ...", colour management
+Blender writes its own log lines ("Read blend: ...", "Saved copy as ...", color management
 notes) straight to the process's file descriptors 1 and 2 from C. While a command runs, both
 descriptors point at a temporary log instead (``os.dup2`` at the OS level, so C output is caught
 too); our results and our error lines go to copies of the original descriptors. The log is kept
