@@ -10,13 +10,17 @@ import pytest
 from blender_helpers import run_cli
 
 from overlap_assist import outputs
-from overlap_assist.batch import cpu_count
 from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
 from overlap_assist.core.jump_curves import JumpSpec
 
 TAIL = (("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
         ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)))
 CHAIN = ("--chain", "tail.001,tail.002")
+
+
+def cpu_count():
+    """CPUs this process may use (what --jobs is capped at)."""
+    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
 
 
 def one_error(proc, fragment):
