@@ -9,6 +9,7 @@ unless the command says so, and outputs are written atomically.
 import argparse
 import contextlib
 import json
+import math
 import os
 import sys
 
@@ -201,6 +202,9 @@ def in_scene(bpy, scene):
     before = win.scene if win is not None else None
     if win is not None and before != scene:
         win.scene = scene
+        # Blender 4.5 evaluates a scene that was never the active one only after this (measured:
+        # without it frame_set leaves the pose at rest; 5.x does not need it).
+        bpy.context.view_layer.update()
     try:
         yield scene
     finally:
@@ -245,8 +249,10 @@ def configure_chains(obj, scene, args):
         doc = presets.load_preset_file(args.preset_file)
     overrides = {k: getattr(args, k) for k in ("frequency_hz", "damping_ratio", "air_drag", "gravity_scale",
                                                "body_response") if getattr(args, k) is not None}
-    if overrides:
-        presets.validate_settings(overrides, "command line")
+    for k, v in overrides.items():  # in the command line's own words (the flag, not the setting's key)
+        lo, hi = presets.SETTING_RANGES[k]
+        if not (math.isfinite(v) and lo <= v <= hi):
+            raise CliError(f"--{k.replace('_', '-')} {v:g} is outside {lo:g}–{hi:g}")
     for chain in chains:
         if doc:
             chain.apply_preset(doc, fps)
