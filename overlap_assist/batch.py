@@ -1,9 +1,11 @@
 """Batch processing of many .blend files, each in its own worker process.
 
-Each input is analysed and, when it has chains (or a preset file is given), baked; the outputs
-(``<stem>.analysis.json``, ``<stem>.report.html``, ``<stem>.baked.blend``) are written atomically
-into the output folder. One file's failure is reported and the rest go on. A stamp per input
-records what produced its outputs, so re-running skips files whose outputs are up to date.
+Each input is analyzed and, when it has chains, baked; the outputs (``<stem>.analysis.json``,
+``<stem>.report.html``, ``<stem>.baked.blend``, ``<stem>.stamp.json``) are written atomically into
+the output folder, with ``batch_log.json`` for the whole run. One file's failure is reported and
+the rest go on; an unexpected error in a worker is one line in the table, its details go to
+``batch_log.json``. A stamp per input records what produced its outputs, so re-running skips
+files whose outputs are up to date, and files the batch wrote itself are never read as inputs.
 Workers open files with scripts disabled (see cli.open_blend).
 """
 import concurrent.futures
@@ -13,11 +15,48 @@ import json
 import os
 import subprocess
 import sys
+import tempfile
 import time
+import traceback
 
 STAMP_SUFFIX = ".stamp.json"
+EXIT_UNEXPECTED = 3
+"""A worker's exit status for an unexpected error (cli.EXIT_UNEXPECTED)."""
 WORKER_TIMEOUT_S = 1800
 """A single file that takes longer than this is stopped and reported (a hung or huge scene)."""
+
+
+OUTPUT_SUFFIXES = (".baked.blend", ".analysis.json", ".report.html", STAMP_SUFFIX)
+"""Names of the files a batch writes (never read back as inputs)."""
+
+
+def cpu_count() -> int:
+    """CPUs this process may use (the default and the maximum of --jobs)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+def own_outputs(out_dir):
+    """Real paths of the files earlier runs of a batch wrote into ``out_dir`` (from the stamps and by name)."""
+    found = set()
+    try:
+        names = os.listdir(out_dir)
+    except OSError:
+        return found
+    for name in names:
+        path = os.path.join(out_dir, name)
+        if name.endswith(OUTPUT_SUFFIXES):
+            found.add(os.path.realpath(path))
+        if name.endswith(STAMP_SUFFIX):
+            try:
+                with open(path, encoding="utf-8") as f:
+                    stamp = json.load(f)
+                found.update(os.path.realpath(os.path.join(out_dir, o)) for o in stamp.get("outputs", []))
+            except (OSError, ValueError, AttributeError, TypeError):
+                pass
+    return found
 
 
 def expand_inputs(patterns):
@@ -91,32 +130,54 @@ def worker_prefix():
     return [sys.executable, "-m", "overlap_assist"]
 
 
-def worker_command(prefix, path, out_dir, stem, preset_file):
+def worker_command(prefix, path, out_dir, stem, preset_file, scene=None, armature=None, details_file=None):
     args = ["process", path, "--out-dir", out_dir, "--stem", stem]
     if preset_file:
         args += ["--preset-file", preset_file]
+    if scene:
+        args += ["--scene", scene]
+    if armature:
+        args += ["--armature", armature]
+    if details_file:
+        args += ["--details-file", details_file]
     return [*prefix, *args]
 
 
-def run_one(prefix, path, out_dir, stem, preset_file):
-    """Process one input in a worker process; returns a log row."""
+BUG_HINT = "this is a bug in Overlap Assist: please report it with the file and batch_log.json"
+
+
+def run_one(prefix, path, out_dir, stem, preset_file, scene=None, armature=None):
+    """Process one input in a worker process; returns a log row (unexpected errors: ``details``)."""
     start = time.perf_counter()
     row = {"input": path, "stem": stem, "status": "failed", "message": "", "seconds": 0.0}
+    details = None
     try:
+        if os.path.isdir(path):
+            row["message"] = f"{path} is a folder, not a .blend file: give {os.path.join(path, '*.blend')}"
+            return row
         if not os.path.isfile(path):
             row["message"] = f"no such file: {path}"
             return row
         stamp = stamp_for(path, preset_file)
+        stamp.update(scene=scene, armature=armature)
         if up_to_date(out_dir, stem, stamp):
             row.update(status="skipped", message="outputs up to date")
             return row
-        proc = subprocess.run(worker_command(prefix, path, out_dir, stem, preset_file), capture_output=True, text=True,
-                              timeout=WORKER_TIMEOUT_S, stdin=subprocess.DEVNULL)
+        fd, details = tempfile.mkstemp(prefix=".overlap_assist-details-", suffix=".txt")
+        os.close(fd)
+        proc = subprocess.run(worker_command(prefix, path, out_dir, stem, preset_file, scene, armature, details),
+                              capture_output=True, text=True, timeout=WORKER_TIMEOUT_S, stdin=subprocess.DEVNULL)
         if proc.returncode != 0:
             lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
             errors = [ln for ln in lines if "overlap_assist: error:" in ln]
-            row["message"] = (errors or lines or [f"worker exited with status {proc.returncode}"])[-1]
-            row["message"] = row["message"].replace("overlap_assist: error: ", "")
+            message = (errors or [f"the worker stopped with status {proc.returncode}"])[-1]
+            message = message.replace("overlap_assist: error: ", "")
+            text = _read(details)
+            if text or not errors or proc.returncode == EXIT_UNEXPECTED:
+                # Unexpected: one line in the table, the details (traceback, Blender's log) in batch_log.json.
+                row["details"] = text or (proc.stderr[-20000:] + proc.stdout[-2000:])
+                message = f"{message.split('; this is a bug')[0]}; {BUG_HINT}"
+            row["message"] = message
             return row
         result = json.loads(proc.stdout.strip().splitlines()[-1])
         stamp["outputs"] = result["outputs"]
@@ -124,11 +185,24 @@ def run_one(prefix, path, out_dir, stem, preset_file):
         row.update(status="ok", message=result.get("summary", ""), outputs=result["outputs"])
     except subprocess.TimeoutExpired:
         row["message"] = f"took longer than {WORKER_TIMEOUT_S} s and was stopped"
-    except (OSError, ValueError, KeyError, IndexError) as exc:
-        row["message"] = f"{type(exc).__name__}: {exc}"
+    except OSError as exc:
+        row["message"] = f"cannot use {exc.filename or path}: {exc.strerror or exc}"
+    except Exception as exc:  # noqa: BLE001 - one file's unexpected error never stops the batch
+        row["message"] = f"unexpected problem ({type(exc).__name__}: {exc}); {BUG_HINT}"
+        row["details"] = traceback.format_exc()
     finally:
+        if details and os.path.exists(details):
+            os.remove(details)
         row["seconds"] = round(time.perf_counter() - start, 2)
     return row
+
+
+def _read(path):
+    try:
+        with open(path, encoding="utf-8", errors="replace") as f:
+            return f.read()
+    except (OSError, TypeError):
+        return ""
 
 
 def write_json_atomic(path, data):
@@ -138,15 +212,26 @@ def write_json_atomic(path, data):
     os.replace(tmp, path)
 
 
-def run_batch(patterns, out_dir, preset_file=None, jobs=1, out=sys.stdout):
-    """Process every input; returns (rows, exit status). Prints a summary table to ``out``."""
+def run_batch(patterns, out_dir, preset_file=None, jobs=None, out=sys.stdout, scene=None, armature=None):
+    """Process every input; returns (rows, exit status). Prints a summary table to ``out``.
+
+    ``jobs``: worker processes at once (default and maximum: the CPU count). Files this batch
+    wrote into ``out_dir`` (outputs of earlier runs) are left out of the inputs.
+    """
+    out_dir = os.path.abspath(out_dir)
     os.makedirs(out_dir, exist_ok=True)
-    paths = expand_inputs(patterns)
+    ours = own_outputs(out_dir)
+    paths, left_out = [], []
+    for p in expand_inputs(patterns):
+        (left_out if os.path.realpath(p) in ours else paths).append(p)
+    if left_out:
+        out.write(f"not read as inputs: {len(left_out)} file{'s' if len(left_out) > 1 else ''} this batch wrote "
+                  f"({', '.join(os.path.basename(p) for p in left_out[:5])}{', ...' if len(left_out) > 5 else ''})\n")
     stems = output_stems(paths)
-    jobs = max(1, min(jobs, len(paths) or 1))
+    jobs = max(1, min(jobs or cpu_count(), cpu_count(), len(paths) or 1))
     prefix = worker_prefix()
     with concurrent.futures.ThreadPoolExecutor(max_workers=jobs) as pool:
-        futures = [pool.submit(run_one, prefix, p, os.path.abspath(out_dir), s, preset_file)
+        futures = [pool.submit(run_one, prefix, p, out_dir, s, preset_file, scene, armature)
                    for p, s in zip(paths, stems)]
         rows = [f.result() for f in futures]
     width = max([len(r["input"]) for r in rows] + [5])
@@ -156,6 +241,6 @@ def run_batch(patterns, out_dir, preset_file=None, jobs=1, out=sys.stdout):
     counts = {k: sum(r["status"] == k for r in rows) for k in ("ok", "skipped", "failed")}
     out.write(f"{counts['ok']} processed, {counts['skipped']} up to date, {counts['failed']} failed\n")
     write_json_atomic(os.path.join(out_dir, "batch_log.json"),
-                      {"inputs": len(rows), **counts, "rows": rows,
+                      {"inputs": len(rows), **counts, "not_read_as_inputs": left_out, "jobs": jobs, "rows": rows,
                        "caution": "figures are for animation plausibility only"})
     return rows, (1 if counts["failed"] else 0)

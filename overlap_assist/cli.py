@@ -1,59 +1,78 @@
 """Headless commands: ``python -m overlap_assist <command> ...`` or ``blender --command overlap_assist ...``.
 
-Files are opened with script auto-execution off. Errors print one line on stderr and exit
-non-zero; nothing is written unless the command says so.
+Files are opened with script auto-execution off. stdout carries only our results, stderr only our
+lines (Blender's own log lines are kept out, see :mod:`.streams`). Every problem is one line on
+stderr: exit status 2 for something the user can fix (the line says what to do), 3 for an
+unexpected error (the line says where its details were saved, to report it). Nothing is written
+unless the command says so, and outputs are written atomically.
 """
 import argparse
 import contextlib
 import json
+import math
 import os
 import sys
 
+from . import outputs
+from . import streams as streams_mod
 from .core.errors import OverlapAssistError
 
 EXIT_INPUT = 2
+EXIT_UNEXPECTED = 3
+PREFIX = "overlap_assist: error: "
 
 
 class CliError(Exception):
     """A problem with the command's input; the message says what to do."""
 
 
+class _Parser(argparse.ArgumentParser):
+    """Usage errors as one line (argparse prints the whole usage block otherwise)."""
+
+    def error(self, message):
+        self.exit(EXIT_INPUT, f"{PREFIX}{message} (see {self.prog} --help)\n")
+
+
 def build_parser():
-    p = argparse.ArgumentParser(prog="python -m overlap_assist",
-                                description="Overlap Assist headless commands (figures are for animation "
-                                            "plausibility only, not biomechanical or medical assessment)")
-    sub = p.add_subparsers(dest="command", required=True)
-    a = sub.add_parser("analyze", help="analyse a rig's body motion: load, phases, flight check")
+    p = _Parser(prog="python -m overlap_assist",
+                description="Overlap Assist headless commands (figures are for animation "
+                            "plausibility only, not biomechanical or medical assessment)")
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    a = sub.add_parser("analyze", help="analyze a rig's body motion: load, phases, flight check")
     a.add_argument("file", help=".blend file to read (never modified)")
-    a.add_argument("--armature", help="armature object name (default: the only armature)")
+    add_target_options(a, "default: every armature that moves (one JSON line each with --json)")
     add_body_options(a)
-    a.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
+    a.add_argument("--json", action="store_true", help="print one JSON object per armature instead of a summary")
     s = sub.add_parser("simulate", help="simulate chains and print per-chain summaries (nothing is written)")
     s.add_argument("file", help=".blend file to read (never modified)")
-    s.add_argument("--armature", help="armature object name (default: the only armature)")
+    add_target_options(s, "default: the armature that has chains (or the --chain bones)")
     add_chain_options(s)
     add_body_options(s)
     s.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     b = sub.add_parser("bake", help="simulate chains and bake them to keys on a separate layer, saved to --out")
     b.add_argument("file", help=".blend file to read")
     b.add_argument("--out", help="where to save the baked file (required unless --in-place)")
-    b.add_argument("--in-place", action="store_true", help="overwrite the input file (atomically)")
-    b.add_argument("--armature", help="armature object name (default: the only armature)")
+    b.add_argument("--in-place", action="store_true",
+                   help="overwrite the input file (atomically; a symlink's target; not a read-only file)")
+    add_target_options(b, "default: the armature that has chains (or the --chain bones)")
     add_chain_options(b)
     b.add_argument("--tolerance-deg", type=float, default=0.5, help="key reduction tolerance in degrees (0 = every frame)")
     b.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     t = sub.add_parser("batch", help="process many .blend files (analysis, bake of stored chains, report)")
     t.add_argument("inputs", nargs="+", help=".blend files or globs (quote globs)")
-    t.add_argument("--out", required=True, help="output folder")
+    t.add_argument("--out", required=True, help="output folder (created; its own outputs are never read as inputs)")
     t.add_argument("--preset-file", help="chain preset applied to every file's chains (and bakes them)")
-    t.add_argument("--jobs", type=int, default=1, help="files processed at once (worker processes)")
+    add_target_options(t, "default: every armature that moves")
+    t.add_argument("--jobs", type=int, default=None,
+                   help="files processed at once (worker processes; default and maximum: the CPU count)")
     w = sub.add_parser("process", help="one file of a batch: analysis JSON, report and (with chains) a baked copy")
-    w.add_argument("file")
-    w.add_argument("--out-dir", required=True)
+    w.add_argument("file", help=".blend file to read (never modified)")
+    w.add_argument("--out-dir", required=True, help="folder for the outputs")
     w.add_argument("--stem", required=True, help="base name of the outputs")
-    w.add_argument("--preset-file")
-    w.add_argument("--armature")
-    d = sub.add_parser("demo", help="build our demo character and jumps, analyse them, write the outputs")
+    w.add_argument("--preset-file", help="chain preset applied to the file's chains")
+    add_target_options(w, "default: every armature that moves")
+    w.add_argument("--details-file", help=argparse.SUPPRESS)
+    d = sub.add_parser("demo", help="build our demo character and jumps, analyze them, write the outputs")
     d.add_argument("--out", default="out/demo", help="output folder (created; existing outputs are replaced)")
     return p
 
@@ -95,6 +114,12 @@ def apply_body_options(obj, args):
         body.bone_overrides = ", ".join(pairs)
 
 
+def add_target_options(p, armature_default):
+    p.add_argument("--scene", help="scene to work in (default: the scene that holds the armature, "
+                                   "the file's active scene first)")
+    p.add_argument("--armature", help=f"armature object name ({armature_default})")
+
+
 def add_chain_options(p):
     p.add_argument("--chain", action="append", default=[], metavar="BONE[,BONE...]",
                    help="bones of one chain, root to tip (repeat for more chains; default: the chains stored in the file)")
@@ -107,8 +132,135 @@ def add_chain_options(p):
         p.add_argument(flag, type=float, help=help_text)
 
 
+# ---------------------------------------------------------------- opening and choosing
+
+def import_bpy():
+    try:
+        import bpy
+    except ImportError:
+        raise CliError("this command needs Blender's Python module: run it with the project's venv "
+                       "(scripts/setup_env.sh) or as 'blender --command overlap_assist ...'") from None
+    return bpy
+
+
+def open_blend(bpy, path):
+    """Open ``path`` with embedded scripts disabled."""
+    outputs.check_input_file(path)
+    try:
+        bpy.ops.wm.open_mainfile(filepath=os.path.abspath(path), load_ui=False, use_scripts=False)
+    except RuntimeError as exc:
+        text = str(exc).strip()
+        first = text.splitlines()[-1].replace("Error: ", "").strip() if text else "unreadable"
+        raise CliError(f"cannot read {path} as a .blend file ({first})") from None
+
+
+def _names(objs):
+    return ", ".join(sorted(o.name for o in objs)) or "none"
+
+
+def pick_scene(bpy, name):
+    """The scene named ``name`` (None when no --scene was given)."""
+    if name is None:
+        return None
+    scene = bpy.data.scenes.get(name)
+    if scene is None:
+        raise CliError(f"no scene named '{name}'; scenes in the file: {_names(bpy.data.scenes)}")
+    return scene
+
+
+def home_scene(bpy, obj):
+    """The scene to evaluate ``obj`` in: the file's active scene if it holds ``obj``, else the first that does."""
+    active = _window_scene(bpy)
+    holding = [s for s in bpy.data.scenes if s.objects.get(obj.name) is not None]
+    if active is not None and active in holding:
+        return active
+    if not holding:
+        raise CliError(f"armature '{obj.name}' is in no scene: link it to a scene first")
+    return holding[0]
+
+
+def _window_scene(bpy):
+    win = bpy.context.window or (bpy.context.window_manager.windows[0]
+                                 if bpy.context.window_manager and bpy.context.window_manager.windows else None)
+    return win.scene if win is not None else bpy.context.scene
+
+
+def pick_targets(bpy, args, wanted, what, several=False):
+    """[(armature, scene)] the command works on.
+
+    ``wanted(obj)`` says whether an armature qualifies without --armature (it moves, it has chains);
+    ``what`` says that in the messages ("with chains"). With ``several`` every qualifying armature is taken,
+    otherwise more than one is an error listing the candidates.
+    """
+    scene = pick_scene(bpy, getattr(args, "scene", None))
+    where = f"scene '{scene.name}'" if scene is not None else "the file"
+    if scene is not None:
+        pool = [o for o in scene.objects if o.type == 'ARMATURE']
+    else:
+        pool = [o for o in bpy.data.objects if o.type == 'ARMATURE'
+                and any(s.objects.get(o.name) is not None for s in bpy.data.scenes)]
+    name = getattr(args, "armature", None)
+    if name:
+        obj = next((o for o in pool if o.name == name), None)
+        if obj is None:
+            raise CliError(f"no armature named '{name}' in {where}; armatures there: {_names(pool)}")
+        return [(obj, scene or home_scene(bpy, obj))]
+    if not pool:
+        raise CliError(f"{where} has no armature")
+    chosen = [o for o in pool if wanted(o)]
+    if not chosen:
+        if len(pool) == 1:
+            chosen = pool  # its own check says what is missing
+        else:
+            raise CliError(f"no armature in {where} {what}; armatures there: {_names(pool)} "
+                           f"(choose one with --armature)")
+    if len(chosen) > 1 and not several:
+        raise CliError(f"several armatures in {where} {what}, choose one with --armature: {_names(chosen)}")
+    return [(o, scene or home_scene(bpy, o)) for o in sorted(chosen, key=lambda o: o.name)]
+
+
+def moving_targets(bpy, args):
+    from .blender.rig_motion import has_motion
+    return pick_targets(bpy, args, has_motion, "with motion", several=True)
+
+
+def chain_targets(bpy, args):
+    if args.chain:
+        wanted_bones = {n.strip() for spec in args.chain for n in spec.split(",") if n.strip()}
+        return pick_targets(bpy, args, lambda o: bool(wanted_bones) and wanted_bones <= set(o.data.bones.keys()),
+                            "with the --chain bones")
+    return pick_targets(bpy, args, lambda o: any(not c.mute for c in o.overlap_assist.chains), "with chains")
+
+
+@contextlib.contextmanager
+def in_scene(bpy, scene):
+    """Evaluate in ``scene`` (the window's scene while inside; the file's active scene is put back)."""
+    win = bpy.context.window or (bpy.context.window_manager.windows[0]
+                                 if bpy.context.window_manager.windows else None)
+    before = win.scene if win is not None else None
+    if win is not None and before != scene:
+        win.scene = scene
+        # Blender 4.5 evaluates a scene that was never the active one only after this (measured:
+        # without it frame_set leaves the pose at rest; 5.x does not need it).
+        bpy.context.view_layer.update()
+    try:
+        yield scene
+    finally:
+        if win is not None and before is not None and win.scene != before:
+            win.scene = before
+
+
+def chain_frame_range(obj, scene):
+    """The frames a bake covers: the file's stored bake range when it is on, else the scene's."""
+    s = obj.overlap_assist
+    if s.bake_use_range:
+        return s.bake_frame_start, s.bake_frame_end
+    return scene.frame_start, scene.frame_end
+
+
 def configure_chains(obj, scene, args):
     """Set up the chains the command works on (temporary, in memory). Returns the chain items."""
+    from .blender.chain_sim import active_chains
     from .core import presets
     settings = obj.overlap_assist
     if args.chain:
@@ -122,9 +274,9 @@ def configure_chains(obj, scene, args):
             chain.name = names[0]
             for n in names:
                 chain.bones.add().name = n
-    chains = [c for c in settings.chains if not c.mute]
-    if not chains:
+    if not any(not c.mute for c in settings.chains):
         raise CliError(f"'{obj.name}' has no chains: name the bones with --chain BONE,BONE,...")
+    chains = active_chains(obj)  # a stored chain naming a missing bone is refused by name
     fps = scene.render.fps / scene.render.fps_base
     doc = None
     if args.preset and args.preset_file:
@@ -135,8 +287,10 @@ def configure_chains(obj, scene, args):
         doc = presets.load_preset_file(args.preset_file)
     overrides = {k: getattr(args, k) for k in ("frequency_hz", "damping_ratio", "air_drag", "gravity_scale",
                                                "body_response") if getattr(args, k) is not None}
-    if overrides:
-        presets.validate_settings(overrides, "command line")
+    for k, v in overrides.items():  # in the command line's own words (the flag, not the setting's key)
+        lo, hi = presets.SETTING_RANGES[k]
+        if not (math.isfinite(v) and lo <= v <= hi):
+            raise CliError(f"--{k.replace('_', '-')} {v:g} is outside {lo:g}–{hi:g}")
     for chain in chains:
         if doc:
             chain.apply_preset(doc, fps)
@@ -147,100 +301,50 @@ def configure_chains(obj, scene, args):
     return chains
 
 
-@contextlib.contextmanager
-def quiet_stdout():
-    """Send Blender's own stdout chatter to stderr; yield a writer for our real output."""
-    sys.stdout.flush()
-    saved = os.dup(1)
-    os.dup2(2, 1)
-    out = os.fdopen(os.dup(saved), "w")
-    try:
-        yield out
-    finally:
-        out.flush()
-        sys.stdout.flush()
-        os.dup2(saved, 1)
-        os.close(saved)
-        out.close()
-
-
-def import_bpy():
-    try:
-        import bpy
-    except ImportError:
-        raise CliError("this command needs Blender's Python module: run it with the project's venv "
-                       "(scripts/setup_env.sh) or as 'blender --command overlap_assist ...'") from None
-    return bpy
-
-
-def open_blend(bpy, path):
-    """Open ``path`` with embedded scripts disabled."""
-    if not os.path.isfile(path):
-        raise CliError(f"no such file: {path}")
-    try:
-        bpy.ops.wm.open_mainfile(filepath=os.path.abspath(path), load_ui=False, use_scripts=False)
-    except RuntimeError as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else "unreadable"
-        raise CliError(f"cannot read {path} as a .blend file ({first})") from None
-
-
-def pick_armature(bpy, name):
-    arms = [o for o in bpy.data.objects if o.type == 'ARMATURE']
-    if name:
-        obj = bpy.data.objects.get(name)
-        if obj is None or obj.type != 'ARMATURE':
-            raise CliError(f"no armature named '{name}'; armatures in the file: "
-                           + (", ".join(sorted(o.name for o in arms)) or "none"))
-        return obj
-    if len(arms) == 1:
-        return arms[0]
-    if not arms:
-        raise CliError("the file has no armature")
-    raise CliError("the file has several armatures, choose one with --armature: "
-                   + ", ".join(sorted(o.name for o in arms)))
-
-
 def addon_registered(bpy):
     """Register the add-on for the command if it is not already (and clean up after)."""
     from .blender import registered
     return registered()
 
 
-def cmd_analyze(args, out):
+# ---------------------------------------------------------------- commands
+
+def cmd_analyze(args, io):
     bpy = import_bpy()
     from .blender.analyze import run_analysis, summary_line
-    from .core.constants import CAUTION
     from .core.body_analysis import analysis_to_dict
+    from .core.constants import CAUTION
     open_blend(bpy, args.file)
     with addon_registered(bpy):
-        obj = pick_armature(bpy, args.armature)
-        apply_body_options(obj, args)
-        result, warnings = run_analysis(obj, bpy.context.scene)
-        if args.json:
-            d = analysis_to_dict(result)
-            d["armature"] = obj.name
-            d["warnings"] = warnings
-            out.write(json.dumps(d) + "\n")
-        else:
-            out.write(f"{obj.name}: {summary_line(result)}\n")
-            for w in warnings:
-                out.write(f"warning: {w}\n")
-            out.write(CAUTION + "\n")
+        targets = moving_targets(bpy, args)
+        for obj, scene in targets:
+            with in_scene(bpy, scene):
+                apply_body_options(obj, args)
+                result, warnings = run_analysis(obj, scene)
+            if args.json:
+                d = analysis_to_dict(result)
+                d["armature"], d["scene"] = obj.name, scene.name
+                d["warnings"] = warnings
+                io.out.write(json.dumps(d) + "\n")
+            else:
+                io.out.write(f"{obj.name} (scene {scene.name}): {summary_line(result)}\n")
+                for w in warnings:
+                    io.out.write(f"warning: {w}\n")
+        if not args.json:
+            io.out.write(CAUTION + "\n")
     return 0
 
 
 def write_atomic(path, text):
     """Write ``text`` to ``path`` through a temporary file and a rename (no half-written outputs)."""
-    tmp = f"{path}.tmp{os.getpid()}"
-    with open(tmp, "w", encoding="utf-8") as f:
-        f.write(text)
-    os.replace(tmp, path)
+    outputs.write_text_atomic(path, text)
 
 
-def cmd_demo(args, out):
+def cmd_demo(args, io):
     import_bpy()
     from .demo import CAUTION, run_demo
-    result = run_demo(args.out, progress=lambda line: print(line, file=sys.stderr))
+    out = io.out
+    result = run_demo(args.out, progress=lambda line: (io.err.write(line + "\n"), io.err.flush()))
     for line in result["summary_lines"]:
         out.write(line + "\n")
     for name, flags in result["flags"].items():
@@ -264,20 +368,21 @@ def simulate_summary(obj, scene, chains):
     from .blender import chain_sim
     from .blender.analyze import run_analysis
     from .core.chain_summary import settle_index, swing_angles
+    start, end = chain_frame_range(obj, scene)
     extra = ()
     try:
         from .blender.sample_body import body_plan
         extra = tuple(body_plan(obj, scene, obj.overlap_assist.body).bones)
-    except Exception:  # noqa: BLE001 - the chain summary stands without a body analysis
+    except OverlapAssistError:  # the chain summary stands without a body analysis
         pass
-    sampled = chain_sim.sample_rig(obj, scene, chains, scene.frame_start, scene.frame_end, extra_bones=extra)
+    sampled = chain_sim.sample_rig(obj, scene, chains, start, end, extra_bones=extra)
     motion, _ = chain_sim.solve(sampled, chain_sim.settings_for(obj, scene, chains))
     touchdown = None
     try:
         body, _ = run_analysis(obj, scene, sampled=sampled.extra)
         if body.flights:
             touchdown = body.flights[-1].touchdown_frame
-    except Exception:  # noqa: BLE001 - the chain summary stands without a body analysis
+    except OverlapAssistError:  # the chain summary stands without a body analysis
         pass
     rows = []
     for name, inp, dirs, contacts in zip(sampled.chain_names, sampled.inputs, motion.dirs, motion.contact_counts):
@@ -290,142 +395,205 @@ def simulate_summary(obj, scene, chains):
                      "max_swing_deg": round(math.degrees(float(ang.max())), 3),
                      "settle_frame_after_landing": settle, "last_touchdown_frame": touchdown,
                      "collider_contacts": int(np.sum(contacts))})
-    return rows
+    return rows, (start, end)
 
 
-def cmd_simulate(args, out):
+def cmd_simulate(args, io):
     bpy = import_bpy()
     open_blend(bpy, args.file)
     with addon_registered(bpy):
-        obj = pick_armature(bpy, args.armature)
-        scene = bpy.context.scene
-        chains = configure_chains(obj, scene, args)
-        apply_body_options(obj, args)
-        rows = simulate_summary(obj, scene, chains)
+        ((obj, scene),) = chain_targets(bpy, args)
+        with in_scene(bpy, scene):
+            chains = configure_chains(obj, scene, args)
+            apply_body_options(obj, args)
+            rows, (start, end) = simulate_summary(obj, scene, chains)
         if args.json:
-            out.write(json.dumps({"armature": obj.name, "frame_start": scene.frame_start,
-                                  "frame_end": scene.frame_end, "chains": rows}) + "\n")
+            io.out.write(json.dumps({"armature": obj.name, "scene": scene.name, "frame_start": start,
+                                     "frame_end": end, "chains": rows}) + "\n")
         else:
             for r in rows:
                 settle = "not settled" if r["settle_frame_after_landing"] is None else \
                     f"settles at frame {r['settle_frame_after_landing']:.0f}"
-                out.write(f"{r['chain']}: {r['bones']} bones, max swing {r['max_swing_deg']:.1f}°, {settle}, "
-                          f"{r['collider_contacts']} collider contacts\n")
+                io.out.write(f"{r['chain']}: {r['bones']} bones, max swing {r['max_swing_deg']:.1f}°, {settle}, "
+                             f"{r['collider_contacts']} collider contacts\n")
     return 0
 
 
-def save_blend_atomic(bpy, path):
-    """Save the open file to ``path`` through a temporary file in the same folder and a rename."""
+def save_blend_atomic(bpy, path, compress=False):
+    """Save the open file to ``path`` through a temporary file in the same folder and a rename.
+
+    ``compress``: write it compressed (Blender's Zstandard), as a compressed input was. A replaced
+    file keeps its permission bits. Checks of the target are the caller's (:mod:`.outputs`).
+    """
     path = os.path.abspath(path)
-    folder = os.path.dirname(path)
-    if not os.path.isdir(folder):
-        raise CliError(f"output folder does not exist: {folder}")
-    tmp = os.path.join(folder, f".{os.path.basename(path)}.tmp{os.getpid()}.blend")
+    outputs.check_folder_writable(os.path.dirname(path))
+    tmp = outputs.temporary_beside(path, ".blend")
     try:
-        bpy.ops.wm.save_as_mainfile(filepath=tmp, copy=True, compress=False)
-        os.replace(tmp, path)
+        bpy.ops.wm.save_as_mainfile(filepath=tmp, copy=True, compress=bool(compress))
+        outputs.replace_keeping_mode(tmp, path)
+    except RuntimeError as exc:
+        text = str(exc).strip()
+        raise CliError(f"cannot save {path}: {text.splitlines()[-1] if text else 'Blender refused'}") from None
     finally:
         if os.path.exists(tmp):
             os.remove(tmp)
     return path
 
 
-def cmd_bake(args, out):
+def cmd_bake(args, io):
+    if args.in_place and args.out:
+        raise CliError("use either --in-place or --out, not both")
+    if not args.out and not args.in_place:
+        raise CliError("say where to save the result with --out OUT.blend (or --in-place to overwrite the input)")
+    if not 0 <= args.tolerance_deg <= 10:
+        raise CliError(f"--tolerance-deg {args.tolerance_deg} is outside 0–10")
+    outputs.check_input_file(args.file)
+    target = outputs.in_place_target(args.file) if args.in_place else outputs.out_file_target(args.out, [args.file])
+    compress = outputs.is_compressed(args.file)
     bpy = import_bpy()
     from .blender import bake_layer
     from .blender.bake_ops import bake_chains
-    if not args.out and not args.in_place:
-        raise CliError("say where to save the result with --out OUT.blend (or --in-place to overwrite the input)")
-    target = os.path.abspath(args.file if args.in_place else args.out)
-    if not args.in_place and os.path.exists(args.file) and os.path.abspath(args.file) == target:
-        raise CliError("--out is the input file: pass --in-place to overwrite it on purpose")
-    if not 0 <= args.tolerance_deg <= 10:
-        raise CliError(f"--tolerance-deg {args.tolerance_deg} is outside 0–10")
     open_blend(bpy, args.file)
     with addon_registered(bpy):
-        obj = pick_armature(bpy, args.armature)
-        scene = bpy.context.scene
-        chains = configure_chains(obj, scene, args)
-        stats, sampled, motion = bake_chains(obj, scene, chains, scene.frame_start, scene.frame_end,
-                                             args.tolerance_deg)
-        obj.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
-        saved = save_blend_atomic(bpy, target)
+        ((obj, scene),) = chain_targets(bpy, args)
+        with in_scene(bpy, scene):
+            chains = configure_chains(obj, scene, args)
+            start, end = chain_frame_range(obj, scene)
+            stats, sampled, motion = bake_chains(obj, scene, chains, start, end, args.tolerance_deg)
+            obj.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
+        saved = save_blend_atomic(bpy, target, compress)
         if args.json:
-            out.write(json.dumps({"armature": obj.name, "out": saved, "chains": [c.name for c in chains],
-                                  "bones": list(stats.bones), "frames": stats.n_frames,
-                                  "keys_before": stats.keys_before, "keys_written": stats.keys_written,
-                                  "reduction_percent": round(stats.reduction_percent, 2),
-                                  "max_error_deg": stats.max_error_deg, "layer": bake_layer.BAKE_TRACK_NAME}) + "\n")
+            io.out.write(json.dumps({"armature": obj.name, "scene": scene.name, "out": saved,
+                                     "chains": [c.name for c in chains], "bones": list(stats.bones),
+                                     "frames": stats.n_frames, "keys_before": stats.keys_before,
+                                     "keys_written": stats.keys_written,
+                                     "reduction_percent": round(stats.reduction_percent, 2),
+                                     "max_error_deg": stats.max_error_deg, "compressed": compress,
+                                     "layer": bake_layer.BAKE_TRACK_NAME}) + "\n")
         else:
-            out.write(f"{obj.name}: {len(chains)} chains, {stats.summary()}\nwrote {saved}\n")
+            io.out.write(f"{obj.name} (scene {scene.name}): {len(chains)} chains, {stats.summary()}\n"
+                         f"wrote {saved}\n")
     return 0
 
 
-def cmd_batch(args, out):
-    from .batch import run_batch
-    if args.jobs < 1:
+def cmd_batch(args, io):
+    from .batch import cpu_count, run_batch
+    if args.jobs is not None and args.jobs < 1:
         raise CliError("--jobs must be at least 1")
+    jobs = args.jobs or cpu_count()
+    if jobs > cpu_count():
+        io.out.write(f"note: --jobs {jobs} lowered to {cpu_count()}, the number of CPUs\n")
+        jobs = cpu_count()
     if args.preset_file:
         from .core import presets
         presets.load_preset_file(args.preset_file)  # refuse a bad preset before any work
-    _, status = run_batch(args.inputs, args.out, os.path.abspath(args.preset_file) if args.preset_file else None,
-                          args.jobs, out)
+    out_dir = outputs.out_folder_target(args.out)
+    _, status = run_batch(args.inputs, out_dir, os.path.abspath(args.preset_file) if args.preset_file else None,
+                          jobs, io.out, scene=args.scene, armature=args.armature)
     return status
 
 
-def cmd_process(args, out):
-    """Worker: analyse one file, bake its chains if it has any, write outputs atomically, print a JSON line."""
+def cmd_process(args, io):
+    """Worker: analyze one file, bake its chains if it has any, write outputs atomically, print a JSON line.
+
+    Every armature that moves (or the one named) is analyzed in its scene; one report holds them all.
+    Outputs: ``<stem>.analysis.json`` (``<stem>.<armature>.analysis.json`` each when there are several),
+    ``<stem>.report.html`` and, when chains were baked, ``<stem>.baked.blend``.
+    """
     bpy = import_bpy()
     from .blender.analyze import run_analysis, summary_line
     from .blender.bake_ops import bake_chains
+    from .blender.chain_sim import active_chains
     from .blender.report_data import baked_keys_by_chain, clip_dict
     from .core import presets
     from .report import write_report
+    out_dir = outputs.out_folder_target(args.out_dir)
+    compress = outputs.is_compressed(args.file)
     open_blend(bpy, args.file)
-    os.makedirs(args.out_dir, exist_ok=True)
     with addon_registered(bpy):
-        obj = pick_armature(bpy, args.armature)
-        scene = bpy.context.scene
-        result, warnings = run_analysis(obj, scene)
-        outputs, summary = [], summary_line(result)
-        chains = [c for c in obj.overlap_assist.chains if not c.mute]
-        sampled = motion = None
-        keys = {}
-        if chains:
-            if args.preset_file:
-                doc = presets.load_preset_file(args.preset_file)
-                fps = scene.render.fps / scene.render.fps_base
-                for c in chains:
-                    c.apply_preset(doc, fps)
-            stats, sampled, motion = bake_chains(obj, scene, chains, scene.frame_start, scene.frame_end, 0.5)
-            keys = baked_keys_by_chain(obj, sampled, stats.n_frames)
+        targets = moving_targets(bpy, args)
+        several = len(targets) > 1
+        doc = presets.load_preset_file(args.preset_file) if args.preset_file else None
+        clips, summaries, outs, baked = [], [], [], False
+        for obj, scene in targets:
+            with in_scene(bpy, scene):
+                result, warnings = run_analysis(obj, scene)
+                summary = summary_line(result)
+                sampled = motion = None
+                keys = {}
+                if any(not c.mute for c in obj.overlap_assist.chains):
+                    chains = active_chains(obj)
+                    if doc:
+                        fps = scene.render.fps / scene.render.fps_base
+                        for c in chains:
+                            c.apply_preset(doc, fps)
+                    start, end = chain_frame_range(obj, scene)
+                    stats, sampled, motion = bake_chains(obj, scene, chains, start, end, 0.5)
+                    obj.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
+                    keys = baked_keys_by_chain(obj, sampled, stats.n_frames)
+                    summary += f"; {stats.summary()}"
+                    baked = True
+            name = f"{obj.name} (scene {scene.name})" if several else args.stem
+            clip = clip_dict(name, result, sampled, motion, keys)
+            clip["analysis"]["warnings"] = warnings
+            clip["analysis"]["armature"], clip["analysis"]["scene"] = obj.name, scene.name
+            clips.append(clip)
+            summaries.append(f"{obj.name}: {summary}" if several else summary)
+            analysis_name = f"{args.stem}.{_safe(obj.name)}.analysis.json" if several else f"{args.stem}.analysis.json"
+            write_atomic(os.path.join(out_dir, analysis_name), json.dumps(clip["analysis"], indent=1))
+            outs.append(analysis_name)
+        if baked:
             blend = args.stem + ".baked.blend"
-            save_blend_atomic(bpy, os.path.join(args.out_dir, blend))
-            outputs.append(blend)
-            summary += f"; {stats.summary()}"
-        clip = clip_dict(args.stem, result, sampled, motion, keys)
-        clip["analysis"]["warnings"] = warnings
-        analysis_name = args.stem + ".analysis.json"
-        write_atomic(os.path.join(args.out_dir, analysis_name), json.dumps(clip["analysis"], indent=1))
+            save_blend_atomic(bpy, os.path.join(out_dir, blend), compress)
+            outs.insert(0, blend)
         report_name = args.stem + ".report.html"
-        write_report(os.path.join(args.out_dir, report_name), [clip])
-        outputs += [analysis_name, report_name]
-        out.write(json.dumps({"outputs": outputs, "summary": summary}) + "\n")
+        write_report(os.path.join(out_dir, report_name), clips)
+        outs.append(report_name)
+        io.out.write(json.dumps({"outputs": outs, "summary": " | ".join(summaries),
+                                 "armatures": [o.name for o, _ in targets]}) + "\n")
     return 0
+
+
+def _safe(name):
+    """An object name as part of a file name."""
+    return "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in name) or "armature"
 
 
 COMMANDS = {"analyze": cmd_analyze, "simulate": cmd_simulate, "bake": cmd_bake, "batch": cmd_batch,
             "process": cmd_process, "demo": cmd_demo}
 
 
-def main(argv=None):
+def _os_error_line(exc: OSError) -> str:
+    where = f" {exc.filename}" if exc.filename else ""
+    return f"cannot use{where}: {exc.strerror or exc}"
+
+
+def main(argv=None, restore_streams=True):
+    """Run one command; returns the exit status. ``restore_streams=False`` when the process exits next."""
+    argv = list(sys.argv[1:] if argv is None else argv)
     args = build_parser().parse_args(argv)
-    with quiet_stdout() as out:
+    with streams_mod.captured(restore=restore_streams) as io:
         try:
-            return COMMANDS[args.command](args, out)
-        except (CliError, OverlapAssistError) as exc:
-            print(f"overlap_assist: error: {exc}", file=sys.stderr)
+            return COMMANDS[args.command](args, io)
+        except (CliError, OverlapAssistError, outputs.OutputError) as exc:
+            io.err.write(f"{PREFIX}{exc}\n")
             return EXIT_INPUT
+        except OSError as exc:
+            io.err.write(f"{PREFIX}{_os_error_line(exc)}\n")
+            return EXIT_INPUT
+        except KeyboardInterrupt:
+            io.err.write(f"{PREFIX}interrupted: nothing more was written\n")
+            return 130
+        except Exception as exc:  # noqa: BLE001 - the catch-all: one line, details to a file
+            text = streams_mod.details_text(exc, ["overlap_assist", *argv], io.log_tail())
+            try:
+                where = streams_mod.write_details(text, getattr(args, "details_file", None))
+                hint = f"details saved in {where}"
+            except OSError:
+                hint = "no details could be saved"
+            io.err.write(f"{PREFIX}unexpected problem ({streams_mod.short_text(exc)}); this is a bug in "
+                         f"Overlap Assist: please report it with the file and the details ({hint})\n")
+            return EXIT_UNEXPECTED
         finally:
             _leave_blender_clean()
 
@@ -442,4 +610,4 @@ def _leave_blender_clean():
 
 def blender_command(argv):
     """Entry point for ``blender --command overlap_assist ...``."""
-    return main(list(argv))
+    return main(list(argv), restore_streams=False)

@@ -5,10 +5,12 @@ import bpy
 import numpy as np
 
 from ..core.body_analysis import analyse_body, analysis_to_dict
+from ..core import readout
 from ..core.errors import OverlapAssistError
 from . import anim_data
 from .selection import armature_poll
 from .sample_body import body_samples
+from .op_errors import guarded
 
 LOAD_PROPERTY = "overlap_load_g"
 """Custom property on the armature object whose F-curve shows the load factor."""
@@ -88,16 +90,17 @@ def summary_line(result):
     parts = [f"body: {BODY_WORDS.get(result.body_source, result.body_source)}; airborne from {result.airborne_from}"]
     for fl in result.flights:
         if fl.kind == "drop":
-            parts.append(f"drop {fl.takeoff_frame:.1f}, touchdown {fl.touchdown_frame:.1f}: "
+            parts.append(f"drop {readout.frame(fl.takeoff_frame)}, touchdown {readout.frame(fl.touchdown_frame)}: "
                          f"{fl.hang_time_s:.2f} s in the air, {fl.verdict}")
             continue
-        parts.append(f"takeoff {fl.takeoff_frame:.1f}, apex {fl.apex_frame:.1f}, touchdown {fl.touchdown_frame:.1f}: "
+        parts.append(f"takeoff {readout.frame(fl.takeoff_frame)}, apex {readout.frame(fl.apex_frame)}, touchdown {readout.frame(fl.touchdown_frame)}: "
                      f"hang {fl.hang_time_s:.2f} s, {fl.verdict}")
     if result.landings:
-        parts.append(f"landing peak {max(x.peak_load_g for x in result.landings):.1f} g")
+        parts.append(f"landing peak {readout.load_g(max(x.peak_load_g for x in result.landings))}")
     return "; ".join(parts)
 
 
+@guarded
 class OVERLAP_ASSIST_OT_analyze_motion(bpy.types.Operator):
     """Sample the rig's body motion and show the load it feels, its jump phases and a flight check"""
     bl_idname = "overlap_assist.analyze_motion"

@@ -6,6 +6,7 @@ import bpy
 from ..core.errors import OverlapAssistError
 from . import bake_layer
 from .selection import armature_poll, bone_selected
+from .op_errors import guarded
 
 INTO_ACTION_WARNING = ("This replaces the rotation keys of the baked bones in your action over the baked "
                        "frames. Undo (Ctrl+Z) brings them back")
@@ -23,6 +24,7 @@ def confirm_into_action(operator, context, event):
         confirm_text="Write Keys", icon='WARNING')
 
 
+@guarded
 class OVERLAP_ASSIST_OT_remove_bake(bpy.types.Operator):
     """Delete the Overlap Bake layer and its action; the animation plays exactly as before the bake"""
     bl_idname = "overlap_assist.remove_bake"
@@ -93,6 +95,7 @@ def bake_chains(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_
     return run_to_end(bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action), progress)
 
 
+@guarded
 class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
     """Simulate the chains and bake them to editable keys on the Overlap Bake layer (the animation itself is kept)"""
     bl_idname = "overlap_assist.bake_chains"

@@ -67,7 +67,7 @@ class OverlapAssistChain(bpy.types.PropertyGroup):
                               subtype='ANGLE', update=_changed,
                               description="Largest angle a link may swing away from its animated direction")
     collision_radius: FloatProperty(name="Collision radius", default=0.0, min=0.0, max=1.0, subtype='DISTANCE',
-                                    update=_changed, description="Thickness of the chain against colliders (metres)")
+                                    update=_changed, description="Thickness of the chain against colliders (meters)")
     substeps: IntProperty(name="Sub-steps", default=4, min=1, max=16, update=_changed,
                           description="Solver steps per frame (stiff settings add more automatically)")
 
@@ -125,7 +125,7 @@ class OverlapAssistCollider(bpy.types.PropertyGroup):
     bone: StringProperty(name="Bone", update=_changed, description="Body bone the collider moves with")
     shape: EnumProperty(name="Shape", items=COLLIDER_SHAPES, default="CAPSULE", update=_changed)
     radius: FloatProperty(name="Radius", default=0.1, min=0.001, max=2.0, subtype='DISTANCE', update=_changed,
-                          description="Collider radius (metres)")
+                          description="Collider radius (meters)")
 
 
 classes = (OverlapAssistChainBone, OverlapAssistChain, OverlapAssistCollider)

@@ -9,6 +9,7 @@ from ..core import presets
 from ..core.errors import OverlapAssistError
 from . import chain_sim, preview
 from .selection import armature_poll, bone_selected
+from .op_errors import guarded
 
 
 def split_chains(selected, parent_of, children_of):
@@ -88,6 +89,7 @@ def _active_chain(context):
     return s.chains[s.active_chain]
 
 
+@guarded
 class OVERLAP_ASSIST_OT_add_chains(bpy.types.Operator):
     """Turn the selected pose bones into chains (one per selected branch); the first bone's parent is the anchor"""
     bl_idname = "overlap_assist.add_chains"
@@ -136,6 +138,7 @@ class OVERLAP_ASSIST_OT_add_chains(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_remove_chain(bpy.types.Operator):
     """Remove the active chain (its bones and animation are not touched)"""
     bl_idname = "overlap_assist.remove_chain"
@@ -156,6 +159,7 @@ class OVERLAP_ASSIST_OT_remove_chain(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_apply_preset(bpy.types.Operator):
     """Set the active chain's settings from a preset"""
     bl_idname = "overlap_assist.apply_preset"
@@ -180,6 +184,7 @@ class OVERLAP_ASSIST_OT_apply_preset(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_save_preset(bpy.types.Operator):
     """Save the active chain's settings as your own preset"""
     bl_idname = "overlap_assist.save_preset"
@@ -206,6 +211,7 @@ class OVERLAP_ASSIST_OT_save_preset(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_add_collider(bpy.types.Operator):
     """Make the active pose bone a collider the chains stay out of"""
     bl_idname = "overlap_assist.add_collider"
@@ -232,6 +238,7 @@ class OVERLAP_ASSIST_OT_add_collider(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_remove_collider(bpy.types.Operator):
     """Remove the active collider"""
     bl_idname = "overlap_assist.remove_collider"
@@ -252,6 +259,7 @@ class OVERLAP_ASSIST_OT_remove_collider(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_toggle_preview(bpy.types.Operator):
     """Show the chains' simulated motion while scrubbing or playing, without creating keys"""
     bl_idname = "overlap_assist.toggle_preview"
@@ -281,6 +289,7 @@ class OVERLAP_ASSIST_OT_toggle_preview(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_frame_flight(bpy.types.Operator):
     """Set the preview range to the analysed flight plus a few frames either side, to loop the float"""
     bl_idname = "overlap_assist.frame_flight"
@@ -303,7 +312,7 @@ class OVERLAP_ASSIST_OT_frame_flight(bpy.types.Operator):
         summary = json.loads(context.active_object.overlap_assist.body.last_summary)
         flights = summary.get("flights", [])
         if len(flights) < self.flight:
-            self.report({'ERROR'}, "The last analysis found no such flight: analyse a clip with a jump")
+            self.report({'ERROR'}, "The last analysis found no such flight: analyze a clip with a jump")
             return {'CANCELLED'}
         fl = flights[self.flight - 1]
         scene = context.scene

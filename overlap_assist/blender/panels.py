@@ -3,6 +3,7 @@ import json
 
 import bpy
 
+from ..core import readout
 from ..core.constants import CAUTION
 
 
@@ -20,13 +21,13 @@ class OverlapPanelMixin:
 def draw_flight(layout, fl, fps):
     col = layout.column(align=True)
     if fl.get("kind") == "drop":
-        col.label(text=f"Drop {fl['takeoff_frame']:.1f} · touchdown {fl['touchdown_frame']:.1f}")
+        col.label(text=f"Drop {readout.frame(fl['takeoff_frame'])} · touchdown {readout.frame(fl['touchdown_frame'])}")
         col.label(text=f"In the air {fl['hang_time_s']:.2f} s (no takeoff speed: no apex or retiming check)")
         col.label(text=f"Gravity: {fl['verdict']} ({fl['implied_gravity_mps2']:.2f} m/s²)",
                   icon='CHECKMARK' if fl['verdict'].startswith("ballistic") else 'ERROR')
         return
-    col.label(text=f"Takeoff {fl['takeoff_frame']:.1f} · apex {fl['apex_frame']:.1f} · "
-                   f"touchdown {fl['touchdown_frame']:.1f}")
+    col.label(text=f"Takeoff {readout.frame(fl['takeoff_frame'])} · apex {readout.frame(fl['apex_frame'])} · "
+                   f"touchdown {readout.frame(fl['touchdown_frame'])}")
     col.label(text=f"Hang time {fl['hang_time_s']:.2f} s · apex {100 * fl['apex_height_m']:.0f} cm")
     col.label(text=f"Gravity: {fl['verdict']} ({fl['implied_gravity_mps2']:.2f} m/s²)",
               icon='CHECKMARK' if fl['verdict'].startswith("ballistic") else 'ERROR')
@@ -74,7 +75,7 @@ class VIEW3D_PT_overlap_assist_body(OverlapPanelMixin, bpy.types.Panel):
         for fl in summary.get("flights", []):
             draw_flight(box, fl, summary.get("fps", 24.0))
         for land in summary.get("landings", []):
-            box.label(text=f"Landing peak {land['peak_load_g']:.1f} g over {land['decel_frames']:.1f} frames")
+            box.label(text=f"Landing peak {readout.load_g(land['peak_load_g'])} over {land['decel_frames']:.1f} frames")
         for w in summary.get("warnings", []):
             box.label(text=w, icon='INFO')
         box.label(text=CAUTION, icon='QUESTION')

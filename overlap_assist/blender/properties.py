@@ -54,10 +54,10 @@ class OverlapAssistBodySettings(bpy.types.PropertyGroup):
     flight_threshold: FloatProperty(name="Flight threshold (g)", default=C.FLIGHT_LOAD_MAX, min=0.05, max=0.95,
                                     description="Load below which the body may be airborne")
     spline_blocked_keys: BoolProperty(
-        name="Analyse blocked keys as splines", default=False,
+        name="Analyze blocked keys as splines", default=False,
         description="Evaluate stepped/constant keys as if they were Bézier, without changing the action")
     use_frame_range: BoolProperty(name="Custom range", default=False,
-                                  description="Analyse a chosen range instead of the scene's frame range")
+                                  description="Analyze a chosen range instead of the scene's frame range")
     frame_start: IntProperty(name="Start", default=1)
     frame_end: IntProperty(name="End", default=250)
     owned_markers: StringProperty(name="Markers", default="", options={'HIDDEN'},

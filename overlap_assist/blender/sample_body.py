@@ -20,8 +20,8 @@ def check_armature(obj):
     """Raise InputError unless ``obj`` is an animated armature."""
     if obj is None or obj.type != 'ARMATURE':
         raise InputError("select an armature object (the character's rig) first")
-    ad = obj.animation_data
-    if ad is None or (ad.action is None and len(ad.nla_tracks) == 0):
+    from .rig_motion import has_motion  # own keys, a parent's or a constraint target's (world motion counts)
+    if not has_motion(obj):
         raise InputError(f"'{obj.name}' has no animation: key the body's motion first")
 
 

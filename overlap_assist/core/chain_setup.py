@@ -54,7 +54,7 @@ def prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states) -> 
         raise InputError(f"dt_s must be a positive number of seconds, got {dt_s!r}")
     gravity = np.array(gravity_mps2, dtype=np.float64)
     if gravity.shape != (3,) or not np.all(np.isfinite(gravity)):
-        raise InputError("gravity_mps2 must be a finite 3-vector")
+        raise InputError("gravity must be a finite 3-vector (check Scene > Gravity)")
     n_frames = chains[0].n_frames
     if any(c.n_frames != n_frames for c in chains):
         raise InputError("All chains must have the same number of frames")

@@ -84,19 +84,19 @@ class ChainInput:
         dirs = _as_float_array("target_dirs", self.target_dirs)
         lengths = _as_float_array("lengths_m", self.lengths_m)
         if pivot.ndim != 2 or pivot.shape[1] != 3 or pivot.shape[0] < 2:
-            raise InputError(f"pivot_pos_m must have shape (n_frames >= 2, 3), got {pivot.shape}")
+            raise InputError(f"{_label('pivot_pos_m')} need at least 2 frames of 3 coordinates, got {pivot.shape}")
         if lengths.ndim != 1 or lengths.size == 0:
             raise InvalidChainError(f"A chain needs at least one link, got lengths of shape {lengths.shape}")
         if np.any(lengths <= 0.0):
             raise InvalidChainError("Every link of a chain needs a positive length (zero-length bone?)")
         if dirs.shape != (pivot.shape[0], lengths.size, 3):
             raise InputError(
-                f"target_dirs must have shape (n_frames, n_links, 3) = ({pivot.shape[0]}, {lengths.size}, 3), "
+                f"{_label('target_dirs')} must cover {pivot.shape[0]} frames x {lengths.size} bones, "
                 f"got {dirs.shape}"
             )
         norms = np.sqrt(np.einsum("fli,fli->fl", dirs, dirs))
         if np.any(np.abs(norms - 1.0) > UNIT_TOLERANCE):
-            raise InputError("target_dirs must be unit vectors (a bone with zero length or a broken sample?)")
+            raise InputError(f"{_label('target_dirs')} are not unit length (a bone with zero length or a broken sample?)")
         object.__setattr__(self, "pivot_pos_m", pivot)
         object.__setattr__(self, "target_dirs", dirs / norms[..., None])
         object.__setattr__(self, "lengths_m", lengths)
@@ -136,17 +136,17 @@ class Colliders:
         for name in ("sphere_centres_m", "capsule_a_m", "capsule_b_m"):
             arr = _as_float_array(name, getattr(self, name))
             if arr.ndim != 3 or arr.shape[2] != 3:
-                raise InputError(f"{name} must have shape (n_frames, n, 3), got {arr.shape}")
+                raise InputError(f"{_label(name)} must be 3 coordinates per frame and collider, got {arr.shape}")
             object.__setattr__(self, name, arr)
         for name in ("sphere_radii_m", "capsule_radii_m"):
             arr = _as_float_array(name, getattr(self, name))
             if arr.ndim != 1 or np.any(arr <= 0.0):
-                raise InputError(f"{name} must be a 1-D array of positive radii")
+                raise InputError(f"{_label(name)} must be positive")
             object.__setattr__(self, name, arr)
         if self.sphere_centres_m.shape[1] != self.sphere_radii_m.size:
-            raise InputError("sphere_centres_m and sphere_radii_m disagree on the number of spheres")
+            raise InputError("the sphere colliders' positions and radii disagree on the number of spheres")
         if self.capsule_a_m.shape != self.capsule_b_m.shape or self.capsule_a_m.shape[1] != self.capsule_radii_m.size:
-            raise InputError("capsule_a_m, capsule_b_m and capsule_radii_m disagree on the number of capsules")
+            raise InputError("the capsule colliders' ends and radii disagree on the number of capsules")
         if self.ground_height_m is not None:
             g = float(self.ground_height_m)
             if not math.isfinite(g):
@@ -189,10 +189,10 @@ class ChainState:
         dirs = _as_float_array("dirs", self.dirs)
         rates = _as_float_array("dir_rates_per_s", self.dir_rates_per_s)
         if dirs.ndim != 2 or dirs.shape[1] != 3 or rates.shape != dirs.shape:
-            raise InputError(f"ChainState arrays must both have shape (n_links, 3), got {dirs.shape}, {rates.shape}")
+            raise InputError(f"a chain's start state needs 3 coordinates per bone, got {dirs.shape}, {rates.shape}")
         norms = np.linalg.norm(dirs, axis=1)
         if np.any(np.abs(norms - 1.0) > UNIT_TOLERANCE):
-            raise InputError("ChainState.dirs must be unit vectors")
+            raise InputError("a chain's start directions must be unit length")
         dirs = dirs / norms[:, None]
         rates = rates - np.einsum("li,li->l", rates, dirs)[:, None] * dirs
         object.__setattr__(self, "dirs", dirs)
@@ -236,11 +236,35 @@ def _check_range(label: str, value: float, lo: float, hi: float) -> None:
         raise InputError(f"{label} must be between {lo:g} and {hi:g}, got {value!r}")
 
 
+_LABELS = {
+    # Field -> the words users see in an error (never the internal field name).
+    "pivot_pos_m": "the chain roots' animated positions",
+    "target_dirs": "the chain bones' animated directions",
+    "lengths_m": "the chain bones' lengths",
+    "dirs": "the simulated chain directions",
+    "dir_rates_per_s": "the simulated chain's turning rates",
+    "sphere_centres_m": "the sphere colliders' positions",
+    "capsule_a_m": "the capsule colliders' positions",
+    "capsule_b_m": "the capsule colliders' positions",
+    "sphere_radii_m": "the sphere colliders' radii",
+    "capsule_radii_m": "the capsule colliders' radii",
+}
+_NAN_HINT = {
+    "dirs": ": the simulation became unstable; lower Body response or Frequency, and please report it",
+    "dir_rates_per_s": ": the simulation became unstable; lower Body response or Frequency, and please report it",
+}
+
+
+def _label(name: str) -> str:
+    return _LABELS.get(name, name.replace("_", " "))
+
+
 def _as_float_array(name: str, value) -> np.ndarray:
     try:
         arr = np.array(value, dtype=np.float64)  # a copy: inputs are never modified or aliased
     except (TypeError, ValueError):
-        raise InputError(f"{name} must be numeric") from None
+        raise InputError(f"{_label(name)} must be numbers") from None
     if not np.all(np.isfinite(arr)):
-        raise InputError(f"{name} contains NaN or infinite values")
+        raise InputError(f"{_label(name)} contain NaN or infinite values"
+                         + _NAN_HINT.get(name, ": check the rig's constraints and keys"))
     return arr

@@ -16,6 +16,7 @@ from . import constants as C
 from .body_types import Flight
 from .effective_gravity import up_axis
 from .errors import InputError
+from .readout import ratio_g
 
 
 def fit_parabola(tau_s: np.ndarray, values: np.ndarray) -> np.ndarray:
@@ -39,7 +40,7 @@ def apex_for_hang_time(hang_s: float, landing_rise_m: float, g_mps2: float) -> f
 
 
 def verdict_for(ratio: float) -> str:
-    """Plain words for implied/scene gravity, e.g. 'floaty: 0.4 g'."""
+    """Plain words for implied/scene gravity, e.g. 'floaty: 0.45 g'."""
     if not np.isfinite(ratio) or ratio <= 0:
         return "not ballistic: the body does not fall back"
     if ratio < C.FLOATY_RATIO:
@@ -48,7 +49,7 @@ def verdict_for(ratio: float) -> str:
         word = "heavy"
     else:
         word = "ballistic"
-    return f"{word}: {ratio:.1f} g"
+    return f"{word}: {ratio_g(ratio)}"  # one rounding everywhere (core.readout)
 
 
 def check_flight(t_s, pos_m, gravity_mps2, takeoff_s, touchdown_s, fps, frame0) -> Flight:

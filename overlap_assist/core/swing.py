@@ -91,16 +91,17 @@ def swing_offsets(target_rot_wxyz, target_dirs, sim_dirs) -> np.ndarray:
     tgt = np.array(target_dirs, dtype=np.float64)
     sim = np.array(sim_dirs, dtype=np.float64)
     if rot.ndim != 3 or rot.shape[-1] != 4:
-        raise InputError(f"target_rot_wxyz must have shape (n_frames, n_links, 4), got {rot.shape}")
+        raise InputError(f"the chain bones' animated rotations must be one quaternion per frame and bone, got {rot.shape}")
     if tgt.shape != rot.shape[:-1] + (3,) or sim.shape != tgt.shape:
         raise InputError(
-            f"target_dirs and sim_dirs must have shape {rot.shape[:-1] + (3,)}, got {tgt.shape} and {sim.shape}"
+            f"the animated and simulated chain directions must match the rotations {rot.shape[:-1] + (3,)}, "
+            f"got {tgt.shape} and {sim.shape}"
         )
     if not (np.all(np.isfinite(rot)) and np.all(np.isfinite(tgt)) and np.all(np.isfinite(sim))):
         raise InputError("Rotations and directions must be finite")
     norm = np.linalg.norm(rot, axis=-1, keepdims=True)
     if np.any(norm < 1e-9):
-        raise InputError("target_rot_wxyz contains a zero quaternion")
+        raise InputError("the chain bones' animated rotations contain a zero quaternion")
     rot = rot / norm
     tgt = tgt / np.linalg.norm(tgt, axis=-1, keepdims=True)
     sim = sim / np.linalg.norm(sim, axis=-1, keepdims=True)

@@ -1,6 +1,7 @@
 """Findings in animator terms: what each flight and landing says, in words and frames."""
 import math
 
+from ..core import readout
 from ..core.constants import HORIZONTAL_EASE_MPS2
 from .svg_plot import num
 
@@ -14,11 +15,8 @@ def as_float(x) -> float:
 
 
 def fmt_fixed(x: float, digits: int) -> str:
-    """Fixed decimals for prose ("0.45 g", "4.0 g"); '—' for a missing value."""
-    if not math.isfinite(x):
-        return "—"
-    text = f"{x:.{digits}f}"
-    return text[1:] if text.startswith("-") and float(text) == 0 else text
+    """Fixed decimals for prose; '—' for a missing value (the one rounding: core.readout)."""
+    return readout.fixed(x, digits)
 
 
 def fmt_count(x: float) -> str:
@@ -37,10 +35,10 @@ def verdict_word(fl: dict) -> str:
 
 
 def verdict_text(fl: dict) -> str:
-    """'floaty: 0.45 g' (two decimals; the core's verdict rounds to one)."""
+    """'floaty: 0.45 g', rounded as everywhere else (core.readout)."""
     word, ratio = verdict_word(fl), as_float(fl.get("gravity_ratio"))
     if word in ("floaty", "heavy", "ballistic") and math.isfinite(ratio):
-        return f"{word}: {fmt_fixed(ratio, 2)} g"
+        return f"{word}: {readout.ratio_g(ratio)}"
     return str(fl.get("verdict", "")) or "not checked"
 
 
@@ -55,7 +53,7 @@ def flight_findings(fl: dict, fps: float, g_scene: float):
     if word in ("floaty", "heavy") and math.isfinite(ratio):
         feel = ("falls slower than gravity, so it hangs in the air" if word == "floaty"
                 else "falls faster than gravity, so it looks rushed and heavy")
-        out.append(("fix", f"Reads {word}: {fmt_fixed(ratio, 2)} g. The body {feel} (implied gravity "
+        out.append(("fix", f"Reads {word}: {readout.ratio_g(ratio)}. The body {feel} (implied gravity "
                            f"{fmt_fixed(g, 2)} m/s², scene {fmt_fixed(g_scene, 2)} m/s²)."))
         advice = []
         retime = as_float(fl.get("retime_frames"))
@@ -70,7 +68,7 @@ def flight_findings(fl: dict, fps: float, g_scene: float):
             text = ", or ".join(advice)
             out.append(("fix", text[0].upper() + text[1:] + "."))
     elif word == "ballistic":
-        out.append(("note", f"Reads ballistic: {fmt_fixed(ratio, 2)} g (implied gravity {fmt_fixed(g, 2)} m/s², scene {fmt_fixed(g_scene, 2)} m/s²)."))
+        out.append(("note", f"Reads ballistic: {readout.ratio_g(ratio)} (implied gravity {fmt_fixed(g, 2)} m/s², scene {fmt_fixed(g_scene, 2)} m/s²)."))
     else:
         out.append(("fix", f"{verdict[:1].upper()}{verdict[1:]}." if verdict else "The flight could not be checked."))
     if math.isfinite(hang):
@@ -102,8 +100,8 @@ def flight_findings(fl: dict, fps: float, g_scene: float):
 
 
 def landing_finding(landing: dict) -> str:
-    return (f"Landing at frame {fmt_fixed(as_float(landing.get('frame')), 1)}: peak load "
-            f"{fmt_fixed(as_float(landing.get('peak_load_g')), 1)} g at frame {fmt_fixed(as_float(landing.get('peak_frame')), 1)}; "
+    return (f"Landing at frame {readout.frame(landing.get('frame'))}: peak load "
+            f"{readout.load_g(landing.get('peak_load_g'))} at frame {readout.frame(landing.get('peak_frame'))}; "
             f"the body stops descending {fmt_fixed(as_float(landing.get('decel_frames')), 1)} frames after touchdown.")
 
 

@@ -21,6 +21,7 @@ import os
 
 import numpy as np
 
+from ..core import readout
 from ..core.constants import CAUTION
 from .findings import as_float, clip_findings, fmt_count, fmt_fixed, verdict_text, verdict_word
 from .svg_plot import (PlotArea, axes, band, esc, hline, margin_label, marker, num, polyline, spread,
@@ -31,7 +32,7 @@ SOURCES = (
     "Velocity and acceleration: Savitzky, A. &amp; Golay, M. J. E. (1964), <i>Anal. Chem.</i> 36(8):1627.",
     "Load factor n = 1 + a<sub>up</sub>/g: Newton's second law; Linthorne, N. P. (2001), <i>Am. J. Phys.</i> 69(11):1198.",
     "Hang time and apex, h = gT²/8: Bosco, C., Luhtanen, P. &amp; Komi, P. V. (1983), <i>Eur. J. Appl. Physiol.</i> 50:273.",
-    "Centre of mass: Dempster (1955) as tabulated by Winter, D. A. (2009), <i>Biomechanics and Motor Control of "
+    "Center of mass: Dempster (1955) as tabulated by Winter, D. A. (2009), <i>Biomechanics and Motor Control of "
     "Human Movement</i>, 4th ed.; de Leva, P. (1996), <i>J. Biomech.</i> 29(9):1223.",
     "Phase names: McMahon, J. J. et al. (2018), <i>Strength Cond. J.</i> 40(4):96.",
     "Floaty below 0.8 g and heavy above 1.25 g of the scene's gravity: common practice.",
@@ -114,9 +115,25 @@ def _clip_name(index: int, clip) -> str:
 
 # ---------------------------------------------------------------- plot areas (public for tests)
 
+def load_series(clip):
+    """(frames, load) to plot: the per-frame curve with each landing's sub-frame peak merged in, so
+    the plotted curve reaches the peak the findings quote."""
+    a = _analysis(clip)
+    frames, load = _series(a.get("frames"), a.get("load_factor"))
+    peaks = [(as_float(x.get("peak_frame")), as_float(x.get("peak_load_g"))) for x in a.get("landings") or []]
+    peaks = [(f, v) for f, v in peaks if math.isfinite(f) and math.isfinite(v)]
+    if peaks and frames.size:
+        keep = ~np.isin(frames, [f for f, _ in peaks])
+        frames = np.concatenate([frames[keep], [f for f, _ in peaks]])
+        load = np.concatenate([load[keep], [v for _, v in peaks]])
+        order = np.argsort(frames, kind="stable")
+        frames, load = frames[order], load[order]
+    return frames, load
+
+
 def load_area(clip) -> PlotArea | None:
     """Plot area of the load figure of ``clip`` (None when there is no load curve)."""
-    frames, load = _series(_analysis(clip).get("frames"), _analysis(clip).get("load_factor"))
+    frames, load = load_series(clip)
     ok = np.isfinite(frames) & np.isfinite(load)
     if ok.sum() < 2:
         return None
@@ -217,22 +234,11 @@ def _with_labels(area, labels):
     return "".join(margin_label(area, y, text, cls) for y, (_, text, cls) in zip(ys, labels))
 
 
-def _peak_labels(area, labels):
-    """Names written just above each line's peak (x_px, y_px, text), moved apart vertically."""
-    ys = spread([y - 7 for _, y, _ in labels], lo=area.top + 10, hi=area.height - area.bottom - 2)
-    out = []
-    for (x, _, text), y in zip(labels, ys):
-        right = x + 8 * len(text) + 6 < area.width - area.right
-        out.append(f'<text class="line-label halo" x="{num(x + 5 if right else x - 5)}" y="{num(y)}" '
-                   f'text-anchor="{"start" if right else "end"}">{esc(text)}</text>')
-    return "".join(out)
-
-
 def load_figure(clip) -> str:
     a, area = _analysis(clip), load_area(clip)
     if area is None:
         return '<p class="empty">No load curve in this clip.</p>'
-    frames, load = _series(a.get("frames"), a.get("load_factor"))
+    frames, load = load_series(clip)
     parts = [svg_open(area, "Load over time in g, with jump phases and events")]
     seen = []
     for ph in a.get("phases") or []:
@@ -289,7 +295,7 @@ def height_figure(clip) -> str:
         ratio = g / g_scene if g_scene > 0 else as_float(fl.get("gravity_ratio"))
         i = int(np.argmax(pz))
         parts.append(marker(area, pf[i], pz[i], "apex-dot",
-                            f"fit: {fmt_fixed(g, 2)} m/s² = {fmt_fixed(ratio, 2)} g"))
+                            f"fit: {fmt_fixed(g, 2)} m/s² = {readout.ratio_g(ratio)}"))
     parts += [_with_labels(area, labels), svg_close()]
     legend = ""
     if arcs:
@@ -303,6 +309,10 @@ def height_figure(clip) -> str:
     return "".join(parts) + legend
 
 
+SWING_NOTE = ("Tip swing is measured from the animated pose: the angle between where the simulation puts "
+              "each chain's last bone and where the animation alone puts it (0° = no overlap added).")
+
+
 def chain_figure(clip) -> str:
     chains = clip.get("chains") or []
     area = chain_area(clip)
@@ -310,7 +320,13 @@ def chain_figure(clip) -> str:
         return '<p class="empty">No chains were simulated for this clip.</p>'
     parts, labels, legend = [], [], []
     if area is not None:
-        parts += [svg_open(area, "Chain tip swing over time"), axes(area, "frame", "tip swing (°)", 1)]
+        parts += [svg_open(area, "Chain tip swing from the animated pose over time"),
+                  axes(area, "frame", "tip swing from the animated pose (°)", 1)]
+        for fl in _analysis(clip).get("flights") or []:
+            for event in ("takeoff", "touchdown"):
+                x = as_float(fl.get(f"{event}_frame"))
+                if math.isfinite(x) and area.x_min <= x <= area.x_max:
+                    parts.append(vline(area, x, f"event {event}", event, EVENT_ANCHOR[event]))
         for k, ch in enumerate(chains):
             stroke, dash = CHAIN_STYLES[k % len(CHAIN_STYLES)]
             name = str(ch.get("chain", f"chain {k + 1}"))
@@ -319,11 +335,12 @@ def chain_figure(clip) -> str:
             parts.append(polyline(area, f, v, "chain", style, {"chain": name}))
             ok = np.isfinite(f) & np.isfinite(v)
             if ok.any():
-                i = int(np.argmax(np.where(ok, v, -np.inf)))
-                labels.append((float(area.x_px(f[i])), float(area.y_px(v[i])), name))
+                # Named in the right margin at the line's last value: never on top of a curve.
+                labels.append((float(area.y_px(v[ok][-1])), name, "line-label"))
             legend.append(f'<span class="item"><span class="key" style="border-top:2px '
                           f'{"dashed" if dash else "solid"} {stroke}"></span>{esc(name)}</span>')
-        parts += [_peak_labels(area, labels), svg_close(), f'<p class="legend">{"".join(legend)}</p>']
+        parts += [_with_labels(area, labels), svg_close(), f'<p class="legend">{"".join(legend)}</p>']
+    parts.append(f'<p class="legend swing-note">{esc(SWING_NOTE)}</p>')
     rows = []
     for k, ch in enumerate(chains):
         before, after = as_float(ch.get("keys_before")), as_float(ch.get("keys_after"))
@@ -386,7 +403,7 @@ def _clip_article(index: int, clip) -> str:
     if math.isfinite(as_float(a.get("gravity_mps2"))):
         meta.append(f"gravity {num(as_float(a.get('gravity_mps2')), 2)} m/s²")
     if a.get("body_source"):
-        meta.append("body: " + {"com": "centre of mass", "root": "root bone"}.get(a["body_source"], str(a["body_source"])))
+        meta.append("body: " + {"com": "center of mass", "root": "root bone"}.get(a["body_source"], str(a["body_source"])))
     sections = [("Load over time", load_figure(clip)),
                 ("Body height and flight parabola", height_figure(clip)),
                 ("Findings", findings_section(clip)),

@@ -55,7 +55,7 @@ def test_retiming_advice_for_a_floaty_jump():
     t = np.arange(0, hang + 1e-9, 1 / 96)
     z = v0 * t - 0.5 * g_anim * t**2
     fl = check_flight(t, np.stack([0 * t, 0 * t, z], 1), G_DOWN, 0.0, hang, fps, 0.0)
-    assert fl.verdict == "floaty: 0.4 g"
+    assert fl.verdict == "floaty: 0.40 g"
     assert fl.hang_time_needed_s == pytest.approx(hang * np.sqrt(0.4), rel=1e-6)
     assert fl.retime_frames == pytest.approx((hang * np.sqrt(0.4) - hang) * fps, rel=1e-6)
     assert fl.apex_for_hang_time_m == pytest.approx(STANDARD_GRAVITY_MPS2 * hang**2 / 8, rel=1e-6)
@@ -70,6 +70,6 @@ def test_horizontal_easing_is_negative_along_travel():
 
 
 def test_verdict_words():
-    assert verdict_for(1.0) == "ballistic: 1.0 g"
+    assert verdict_for(1.0) == "ballistic: 1.00 g"
     assert verdict_for(1.6).startswith("heavy")
     assert verdict_for(-1).startswith("not ballistic")

@@ -259,3 +259,45 @@ def test_scales_ticks_and_label_spreading():
     assert np.all(np.diff(np.array(ys)[order]) >= 13.0 - 1e-9)
     with pytest.raises(ValueError):
         PlotArea(1.0, 1.0, 0.0, 1.0)
+
+
+def test_the_plotted_load_reaches_the_sub_frame_peak_the_findings_quote(good):
+    # Before: the findings said "peak load 5.0 g" while the plotted curve (whole frames only) peaked
+    # lower. Here the landing's peak lies between whole frames, above every per-frame value, as a
+    # sub-frame sample of a sharp landing does.
+    from overlap_assist.report.html_report import load_area
+    clip = json.loads(json.dumps(good))
+    a = clip["analysis"]
+    land = a["landings"][0]
+    land["peak_frame"] = float(np.floor(land["frame"])) + 1.25
+    land["peak_load_g"] = max(a["load_factor"]) + 1.0
+    html = build_report([clip])
+    load = ET.fromstring(svgs(html)[0])
+    (line,) = by_class(load, "polyline", "load")
+    pts = points(line)
+    area = load_area(clip)
+    top = pts[np.argmin(pts[:, 1])]
+    assert top[1] == pytest.approx(float(area.y_px(land["peak_load_g"])), abs=0.01)
+    assert top[0] == pytest.approx(float(area.x_px(land["peak_frame"])), abs=0.01)
+    assert np.all(np.diff(pts[:, 0]) > 0)  # still one curve, left to right
+    assert f"peak load {land['peak_load_g']:.1f} g" in section(article(html, 1), "Findings")
+
+
+def test_the_tip_swing_plot_is_readable(good):
+    # Before: names sat on the curves' peaks, no takeoff/touchdown lines, no word on what swing is.
+    from overlap_assist.report.html_report import chain_area
+    html = build_report([good])
+    chains = ET.fromstring(svgs(html)[2])
+    area = chain_area(good)
+    fl = good["analysis"]["flights"][0]
+    events = {e.get("class"): float(e.get("x1")) for e in by_class(chains, "line", "event")}
+    assert events == pytest.approx({"event takeoff": float(area.x_px(fl["takeoff_frame"])),
+                                    "event touchdown": float(area.x_px(fl["touchdown_frame"]))}, abs=0.01)
+    names = [t for t in chains.iter("text") if t.text in {ch["chain"] for ch in good["chains"]}]
+    assert len(names) == len(good["chains"])
+    right_edge = area.width - area.right
+    assert all(float(t.get("x")) > right_edge for t in names)  # in the margin, clear of every curve
+    ys = sorted(float(t.get("y")) for t in names)
+    assert np.all(np.diff(ys) >= 13.0 - 1e-6)  # and clear of each other
+    assert "tip swing from the animated pose (°)" in {t.text for t in chains.iter("text")}
+    assert "measured from the animated pose" in section(article(html, 1), "Chains: tip swing and keys")
