@@ -41,6 +41,8 @@ def build_parser():
     add_chain_options(b)
     b.add_argument("--tolerance-deg", type=float, default=0.5, help="key reduction tolerance in degrees (0 = every frame)")
     b.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
+    b.add_argument("--check", action="store_true",
+                   help="only say whether the file's bake still matches its animation (exit 1 if stale or none)")
     t = sub.add_parser("batch", help="process many .blend files (analysis, bake of stored chains, report)")
     t.add_argument("inputs", nargs="+", help=".blend files or globs (quote globs)")
     t.add_argument("--out", required=True, help="output folder")
@@ -290,6 +292,8 @@ def cmd_bake(args, out):
     bpy = import_bpy()
     from .blender import bake_layer
     from .blender.bake_ops import bake_chains
+    if args.check:
+        return check_bake(bpy, args, out)
     if not args.out and not args.in_place:
         raise CliError("say where to save the result with --out OUT.blend (or --in-place to overwrite the input)")
     target = os.path.abspath(args.file if args.in_place else args.out)
@@ -315,6 +319,23 @@ def cmd_bake(args, out):
         else:
             out.write(f"{obj.name}: {len(chains)} chains, {stats.summary()}\nwrote {saved}\n")
     return 0
+
+
+def check_bake(bpy, args, out):
+    """``bake --check``: is the file's bake current, stale (the animation changed after it) or missing?"""
+    from .blender import bake_layer
+    open_blend(bpy, args.file)
+    with addon_registered(bpy):
+        obj = pick_armature(bpy, args.armature)
+        state = bake_layer.bake_state(obj)
+        line = {None: f"no {bake_layer.BAKE_TRACK_NAME} layer: bake first",
+                "current": "the bake is current",
+                "stale": "the bake is stale: the animation changed after the bake; bake again"}[state]
+        if args.json:
+            out.write(json.dumps({"armature": obj.name, "bake": state or "none"}) + "\n")
+        else:
+            out.write(f"{obj.name}: {line}\n")
+    return 0 if state == "current" else 1
 
 
 def cmd_batch(args, out):

@@ -4,7 +4,7 @@ import time
 import bpy
 
 from ..core.errors import OverlapAssistError
-from . import bake_layer
+from . import bake, bake_layer
 from .selection import armature_poll, bone_selected
 
 INTO_ACTION_WARNING = ("This replaces the rotation keys of the baked bones in your action over the baked "
@@ -81,7 +81,7 @@ def bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_a
         sampled = done.value
     motion, offsets = chain_sim.solve(sampled, chain_sim.settings_for(obj, scene, chains))
     yield 0.85
-    stats = bake_layer.bake_offsets(obj, sampled.frames.astype(int), offsets_by_bone(sampled, offsets),
+    stats = bake.bake_offsets(obj, sampled.frames.astype(int), offsets_by_bone(sampled, offsets),
                                     tolerance_deg=tolerance_deg, into_action=into_action,
                                     influence=obj.overlap_assist.bake_influence, scene=scene)
     return stats, sampled, motion

@@ -205,6 +205,8 @@ class VIEW3D_PT_overlap_assist_bake(OverlapPanelMixin, bpy.types.Panel):
         layout.operator("overlap_assist.bake_chains", text="Write into the Action…").into_action = True
         if bake_layer.has_bake(obj):
             layout.prop(s, "bake_influence")
+            if bake_layer.bake_state(obj) == "stale":
+                layout.label(text=bake_layer.STALE_MESSAGE, icon='ERROR')
         if s.last_bake:
             layout.label(text=s.last_bake, icon='INFO')
 
