@@ -72,7 +72,11 @@ def bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_a
     Sampling the rig is the long part and comes first; closing the generator there (a cancelled
     bake) leaves the scene as it was. Solving and writing then run to the end in one go.
     """
-    from . import chain_sim
+    from . import chain_check, chain_sim
+    chain_check.check_chains(obj, chains)
+    locked = chain_check.lock_problem(obj, [b for c in chains for b in c.bone_names()])
+    if locked:
+        raise bake_layer.BakeError(locked)
     sampling = chain_sim.sample_rig_steps(obj, scene, chains, frame_start, frame_end)
     try:
         while True:
