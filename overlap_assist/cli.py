@@ -239,7 +239,8 @@ def simulate_summary(obj, scene, chains):
     except Exception:  # noqa: BLE001 - the chain summary stands without a body analysis
         pass
     rows = []
-    for name, inp, dirs, contacts in zip(sampled.chain_names, sampled.inputs, motion.dirs, motion.contact_counts):
+    for chain, inp, dirs, contacts in zip(chains, sampled.inputs, motion.dirs, motion.contact_counts):
+        name = chain.name
         ang = swing_angles(inp.target_dirs, dirs)
         settle = None
         if touchdown is not None:
@@ -248,7 +249,7 @@ def simulate_summary(obj, scene, chains):
         rows.append({"chain": name, "bones": len(inp.lengths_m),
                      "max_swing_deg": round(math.degrees(float(ang.max())), 3),
                      "settle_frame_after_landing": settle, "last_touchdown_frame": touchdown,
-                     "collider_contacts": int(np.sum(contacts))})
+                     "collider_contacts": int(np.sum(contacts)), "driven_by": chain_sim.chain_notes(obj, chain)})
     return rows
 
 
@@ -269,6 +270,8 @@ def cmd_simulate(args, out):
                     f"settles at frame {r['settle_frame_after_landing']:.0f}"
                 out.write(f"{r['chain']}: {r['bones']} bones, max swing {r['max_swing_deg']:.1f}°, {settle}, "
                           f"{r['collider_contacts']} collider contacts\n")
+                for note in r["driven_by"]:
+                    out.write(f"  {note}\n")
     return 0
 
 

@@ -133,7 +133,7 @@ def _channel_jobs(obj, scene, frames, names, into_action, report):
 
 
 def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, influence=1.0,
-                 progress=None, scene=None) -> BakeStats:
+                 progress=None, scene=None, tolerance_by_bone_deg=None) -> BakeStats:
     """Bake per-frame rotation offsets of bones onto the "Overlap Bake" layer (or into the action).
 
     Parameters
@@ -147,6 +147,7 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     influence : float, 0..1, the layer's influence (ignored with ``into_action``)
     progress : callable(fraction 0..1) or None
     scene : the scene whose frames are sampled (default: the context scene)
+    tolerance_by_bone_deg : {bone: float} or None, a tighter tolerance for the bones named
 
     Raises
     ------
@@ -168,7 +169,9 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     values = key_sets.channel_values(offsets, jobs)
     report(0.7)
     quaternion_bones = {n for n, j in jobs.items() if j.mode == 'QUATERNION'}
-    key_set = key_sets.make_key_set(frames, values, quaternion_bones, np.deg2rad(tolerance_deg))
+    per_bone = {n: float(np.deg2rad(min(t, tolerance_deg))) for n, t in (tolerance_by_bone_deg or {}).items()
+                if n in values}
+    key_set = key_sets.make_key_set(frames, values, quaternion_bones, np.deg2rad(tolerance_deg), per_bone)
     report(0.9)
     if into_action:
         action_name = bake_layer.write_into_action(obj, key_set)

@@ -11,7 +11,7 @@ import numpy as np
 
 from ..core.chain_solver import simulate_chains
 from ..core.chain_types import ChainInput, Colliders
-from ..core.errors import InputError, InvalidChainError
+from ..core.errors import InputError, InvalidChainError, OverlapAssistError
 from ..core.rotations import quat_from_matrix
 from . import chain_check
 from .sample_body import gravity_mps2
@@ -37,6 +37,16 @@ class SampledRig:
 def chain_problem(obj, chain):
     """A line saying what is wrong with ``chain`` on ``obj`` (None if it can be simulated)."""
     return chain_check.path_problem(obj, chain.bone_names())
+
+
+def chain_notes(obj, chain):
+    """Lines saying which bone drives each chain bone where constraints sit in between (or why the
+    chain cannot be keyed); empty on a plain rig."""
+    from . import rig_drive
+    try:
+        return [d.note() for d in rig_drive.resolve_chain(obj, chain.bone_names()) if d.note()]
+    except OverlapAssistError as exc:
+        return [str(exc)]
 
 
 def active_chains(obj, names=None):

@@ -136,10 +136,21 @@ def _keys_every_frame(frames, values_by_bone):
     return {n: out[n] for n in values_by_bone}
 
 
-def make_key_set(frames, values_by_bone, quaternion_bones, tol_rad) -> KeySet:
-    """Keys for every bone: per frame at ``tol_rad`` 0, else reduced within ``tol_rad``."""
+def make_key_set(frames, values_by_bone, quaternion_bones, tol_rad, tol_by_bone=None) -> KeySet:
+    """Keys for every bone: per frame at tolerance 0, else reduced within the tolerance.
+
+    ``tol_by_bone`` ({bone: radians}) overrides ``tol_rad`` for the bones it names (chains whose
+    errors add up through constraints bake tighter); bones sharing a tolerance are reduced together.
+    """
+    tol = {n: (tol_by_bone or {}).get(n, tol_rad) for n in values_by_bone}
     keys_before = sum(v.shape[1] for v in values_by_bone.values()) * len(frames)
-    if tol_rad == 0.0:
-        return KeySet(_keys_every_frame(frames, values_by_bone), keys_before, 0.0)
-    per_bone, max_err = _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad)
-    return KeySet({n: _keys_from_curves(c) for n, c in per_bone.items()}, keys_before, max_err)
+    keys, max_err = {}, 0.0
+    for t in sorted(set(tol.values())):
+        group = {n: v for n, v in values_by_bone.items() if tol[n] == t}
+        if t == 0.0:
+            keys.update(_keys_every_frame(frames, group))
+            continue
+        per_bone, err = _reduce_all(frames, group, quaternion_bones, t)
+        keys.update((n, _keys_from_curves(c)) for n, c in per_bone.items())
+        max_err = max(max_err, err)
+    return KeySet({n: keys[n] for n in values_by_bone}, keys_before, max_err)

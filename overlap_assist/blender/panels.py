@@ -89,7 +89,7 @@ class VIEW3D_PT_overlap_assist_body_options(OverlapPanelMixin, bpy.types.Panel):
 
 class OVERLAP_ASSIST_UL_chains(bpy.types.UIList):
     def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index=0):
-        from .chain_sim import chain_problem
+        from .chain_sim import chain_notes, chain_problem
         problem = chain_problem(context.active_object, item)
         row = layout.row(align=True)
         row.prop(item, "name", text="", emboss=False, icon='ERROR' if problem else 'BONE_DATA')
@@ -134,7 +134,7 @@ class VIEW3D_PT_overlap_assist_chains(OverlapPanelMixin, bpy.types.Panel):
 
     def draw(self, context):
         from . import preview
-        from .chain_sim import chain_problem
+        from .chain_sim import chain_notes, chain_problem
         layout = self.layout
         obj = context.active_object
         s = obj.overlap_assist
@@ -155,6 +155,9 @@ class VIEW3D_PT_overlap_assist_chains(OverlapPanelMixin, bpy.types.Panel):
         problem = chain_problem(obj, chain)
         if problem:
             layout.label(text=f"Chain {chain.name} {problem}", icon='ERROR')
+        else:
+            for note in chain_notes(obj, chain):
+                layout.label(text=note, icon='CONSTRAINT_BONE')
         layout.label(text=" → ".join(chain.bone_names()) or "(no bones)")
         row = layout.row(align=True)
         row.operator_menu_enum("overlap_assist.apply_preset", "preset", text=chain.preset or "Preset")

@@ -152,3 +152,32 @@ def test_uneven_object_scale_bakes_the_simulated_directions(scale, tolerance_deg
     swing = np.degrees(np.arccos(np.clip(np.sum(sampled.inputs[0].target_dirs * motion.dirs[0], axis=-1), -1, 1)))
     assert swing.max() > 10.0          # the chain does swing away from its animated directions
     assert err.max() < allowed_deg, err.max()
+
+
+def test_a_chain_posed_by_ik_is_refused_naming_the_constraint_and_nothing_changes():
+    obj = make_rig()
+    ik = obj.pose.bones["tail.003"].constraints.new('IK')
+    ik.target, ik.subtarget, ik.chain_count = obj, "hand.L", 3
+    n_actions = len(bpy.data.actions)
+    with pytest.raises(RuntimeError, match="bone tail.001 is posed by the IK constraint 'IK' of tail.003 "
+                                           r"\(target hand.L\): rotation keys would not reach it"):
+        op(obj, "bake_chains")
+    assert not bake_layer.has_bake(obj) and len(bpy.data.actions) == n_actions
+
+
+def test_a_child_of_constraint_between_keys_and_pose_is_solved_for():
+    """Child Of keeps the bone's own keys reaching it, through the target's motion: solved by evaluation."""
+    obj = make_rig()
+    c = obj.pose.bones["tail.002"].constraints.new('CHILD_OF')
+    c.target, c.subtarget = obj, "spine"
+    with bpy.context.temp_override(object=obj, active_object=obj):
+        bpy.ops.object.mode_set(mode='POSE')
+        obj.data.bones.active = obj.data.bones["tail.002"]
+        bpy.ops.constraint.childof_set_inverse(constraint=c.name, owner='BONE')
+        bpy.ops.object.mode_set(mode='OBJECT')
+    scene = bpy.context.scene
+    stats, sampled, motion = bake_chains(obj, scene, list(obj.overlap_assist.chains), scene.frame_start,
+                                         scene.frame_end, 0.0)
+    got = _baked_directions(obj, NAMES, sampled.frames)
+    err = np.degrees(np.arccos(np.clip(np.sum(got * motion.dirs[0], axis=-1), -1, 1)))
+    assert err.max() < 0.05, err.max()   # per-frame keys: float32 keys and COMBINE rounding only
