@@ -13,7 +13,7 @@ from ..core.chain_solver import simulate_chains
 from ..core.chain_types import ChainInput, Colliders
 from ..core.errors import InputError, InvalidChainError, OverlapAssistError
 from ..core.rotations import quat_from_matrix
-from . import chain_check
+from . import chain_check, frame_guard
 from .sample_body import gravity_mps2
 
 from .bake_layer import BAKE_TRACK_NAME as BAKE_TRACK
@@ -61,14 +61,14 @@ def active_chains(obj, names=None):
 @contextlib.contextmanager
 def animated_pose_only(obj):
     """Hold the preview off and mute the baked layer while sampling the animated pose."""
-    from . import bake_layer, preview
+    from . import bake_layer
     ad = obj.animation_data
     track = ad.nla_tracks.get(BAKE_TRACK) if ad else None
     was_muted = track.mute if track else None
     if track:
         track.mute = True
         bake_layer.restore_static_rotations(obj, bake_layer.unbaked_static_rotations(obj))
-    with preview.suspended():
+    with frame_guard.held():
         try:
             yield
         finally:
