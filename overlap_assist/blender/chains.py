@@ -275,6 +275,17 @@ class OVERLAP_ASSIST_OT_remove_collider(bpy.types.Operator):
         return {'FINISHED'}
 
 
+def _preview_can_pose(obj, chains):
+    """The preview poses chain bones directly; chains moved through constraints need the bake."""
+    from . import rig_drive
+    for c in chains:
+        drives = rig_drive.resolve_chain(obj, c.bone_names())
+        if rig_drive.needs_solving(drives):
+            raise OverlapAssistError(
+                f"chain '{c.name}' is moved through constraints ({drives[0].note()}): the live preview cannot "
+                "show it; bake it (the bake solves for the controls that reach it)")
+
+
 class OVERLAP_ASSIST_OT_toggle_preview(bpy.types.Operator):
     """Show the chains' simulated motion while scrubbing or playing, without creating keys"""
     bl_idname = "overlap_assist.toggle_preview"
@@ -291,7 +302,7 @@ class OVERLAP_ASSIST_OT_toggle_preview(bpy.types.Operator):
             self.report({'INFO'}, "Preview off: animated pose restored")
             return {'FINISHED'}
         try:
-            chain_sim.active_chains(obj)
+            _preview_can_pose(obj, chain_sim.active_chains(obj))
             preview.PREVIEW.start(obj)
             with preview.suspended():
                 preview.PREVIEW.ensure_solved(obj, scene)

@@ -134,3 +134,11 @@ def test_simulate_on_the_command_line_says_which_bone_drives_each_deform_bone(ri
     assert res.returncode == 0, res.stderr[-2000:]
     assert "DEF-braid.001 is driven by braid.001 (Copy Transforms from ORG-braid.001, Stretch To to " \
            "tweak_braid.002): keys go on braid.001" in res.stdout
+
+
+def test_the_live_preview_of_a_chain_moved_through_constraints_says_to_bake(rigify_file):
+    rig = _open(rigify_file)
+    select_bones(rig, ["DEF-" + n for n in BRAID])
+    op(rig, "add_chains")
+    with pytest.raises(RuntimeError, match="chain 'DEF-braid' is moved through constraints .*bake it"):
+        op(rig, "toggle_preview")
