@@ -153,7 +153,9 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
         s = obj.overlap_assist
         names = None
         if s.bake_scope == "SELECTED":
-            names = {c.name for c in s.chains if any(bone_selected(obj, b) for b in c.bone_names())}
+            from . import rig_drive   # a chain counts as selected by its own bones or the controls it keys
+            names = {c.name for c in s.chains
+                     if any(bone_selected(obj, b) for b in c.bone_names() + rig_drive.key_bones(obj, c.bone_names()))}
             if not names:
                 raise OverlapAssistError("no chain has a selected bone: select chain bones or bake all chains")
         chains = chain_sim.active_chains(obj, names)

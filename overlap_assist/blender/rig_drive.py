@@ -53,7 +53,7 @@ class Drive:
 
 
 def _active(pb):
-    return [c for c in pb.constraints if c.enabled and c.influence > 0.0] if hasattr(pb.constraints, "__iter__") else []
+    return [c for c in pb.constraints if c.enabled and c.influence > 0.0]
 
 
 def _label(c):
@@ -148,6 +148,16 @@ def resolve_chain(obj, names):
                 "give both their directions; leave one of them out of the chain")
         seen[d.key_bone] = d.bone
     return drives
+
+
+def key_bones(obj, names):
+    """The bones a chain's keys go on, or the chain's own bones when it cannot be resolved."""
+    if any(n not in obj.pose.bones for n in names):
+        return list(names)
+    try:
+        return [d.key_bone for d in resolve_chain(obj, names)]
+    except InvalidChainError:
+        return list(names)
 
 
 def needs_solving(drives) -> bool:

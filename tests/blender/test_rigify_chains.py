@@ -142,3 +142,13 @@ def test_the_live_preview_of_a_chain_moved_through_constraints_says_to_bake(rigi
     op(rig, "add_chains")
     with pytest.raises(RuntimeError, match="chain 'DEF-braid' is moved through constraints .*bake it"):
         op(rig, "toggle_preview")
+
+
+def test_bake_selected_counts_a_chain_as_selected_by_the_controls_it_keys(rigify_file):
+    rig = _open(rigify_file)
+    select_bones(rig, ["DEF-" + n for n in PONYTAIL])
+    op(rig, "add_chains")
+    select_bones(rig, ["ponytail.001"])            # the animator selects a control, not the DEF- bone
+    rig.overlap_assist.bake_scope = "SELECTED"
+    assert op(rig, "bake_chains") == {'FINISHED'}
+    assert bake_layer.has_bake(rig)
