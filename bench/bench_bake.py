@@ -7,8 +7,8 @@ the same density as Blender's baker) and at the default 0.5°. Blender's: ``bpy_
 .bake_action`` baking the rotations of the same bones (its signature ``bake_action(obj, *, action,
 frames, bake_options)`` and ``BakeOptions`` fields are the same in 4.5, 5.2 and 5.3). Throughput is
 per-frame channel values per second (bones x channels x frames / s), i.e. keys/s at per-frame
-density. Quaternion bones need no pose sampling in our writer (COMBINE composes); Euler bones
-need their animated angles per frame (read with ``FCurve.evaluate`` here, where plain F-curves of
+density. Quaternion bones need the action's own rotation per frame (the layer sits under the
+user's action and holds U ∘ offset ∘ U⁻¹); Euler bones need their animated angles per frame (read with ``FCurve.evaluate`` here, where plain F-curves of
 the active action are all that animate them; the scene is evaluated frame by frame otherwise), so
 they are timed separately. Both bakers write Bézier keys; at tolerance 0 ours keep Blender's
 automatic handles, as Blender's baker does, and at 0.5° the reduced keys carry ALIGNED handles.
