@@ -1,14 +1,14 @@
 """Benchmark of the bake writer against Blender's own baker, same bones and frames, one run.
 
 Rig: a root and 10 chains of 5 bones (50 baked bones), base animation keyed on every chain bone's
-rotation every 8 frames, 250 frames. Ours: ``bake_layer.bake_offsets`` with damped-swing offsets
+rotation every 8 frames, 250 frames. Ours: ``bake.bake_offsets`` with damped-swing offsets
 (composition with the animated pose, reduction, NLA layer), at tolerance 0 (a key on every frame,
 the same density as Blender's baker) and at the default 0.5°. Blender's: ``bpy_extras.anim_utils
 .bake_action`` baking the rotations of the same bones (its signature ``bake_action(obj, *, action,
 frames, bake_options)`` and ``BakeOptions`` fields are the same in 4.5, 5.2 and 5.3). Throughput is
 per-frame channel values per second (bones x channels x frames / s), i.e. keys/s at per-frame
-density. Quaternion bones need no pose sampling in our writer (COMBINE composes); Euler bones
-need their animated angles per frame (read with ``FCurve.evaluate`` here, where plain F-curves of
+density. Quaternion bones need the action's own rotation per frame (the layer sits under the
+user's action and holds U ∘ offset ∘ U⁻¹); Euler bones need their animated angles per frame (read with ``FCurve.evaluate`` here, where plain F-curves of
 the active action are all that animate them; the scene is evaluated frame by frame otherwise), so
 they are timed separately. Both bakers write Bézier keys; at tolerance 0 ours keep Blender's
 automatic handles, as Blender's baker does, and at 0.5° the reduced keys carry ALIGNED handles.
@@ -27,7 +27,7 @@ import numpy as np
 from bpy_extras import anim_utils
 
 sys.path.insert(0, str(pathlib.Path(__file__).resolve().parents[1]))
-from overlap_assist.blender import anim_data, bake_layer  # noqa: E402
+from overlap_assist.blender import anim_data, bake, bake_layer  # noqa: E402
 from overlap_assist.blender.demo_scene import build_armature  # noqa: E402
 
 SKIN_VERTICES = 20000
@@ -104,7 +104,7 @@ def time_ours(obj, frames, offsets, tol):
     times, stats = [], None
     for _ in range(RUNS + 1):
         t0 = time.perf_counter()
-        stats = bake_layer.bake_offsets(obj, frames, offsets, tolerance_deg=tol)
+        stats = bake.bake_offsets(obj, frames, offsets, tolerance_deg=tol)
         times.append(time.perf_counter() - t0)
         bake_layer.remove_bake(obj)
     return statistics.median(times[1:]), stats

@@ -58,6 +58,8 @@ def build_parser():
     add_chain_options(b)
     b.add_argument("--tolerance-deg", type=float, default=0.5, help="key reduction tolerance in degrees (0 = every frame)")
     b.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
+    b.add_argument("--check", action="store_true",
+                   help="only say whether the file's bake still matches its animation (exit 1 if stale or none)")
     t = sub.add_parser("batch", help="process many .blend files (analysis, bake of stored chains, report)")
     t.add_argument("inputs", nargs="+", help=".blend files or globs (quote globs)")
     t.add_argument("--out", required=True, help="output folder (created; its own outputs are never read as inputs)")
@@ -385,7 +387,8 @@ def simulate_summary(obj, scene, chains):
     except OverlapAssistError:  # the chain summary stands without a body analysis
         pass
     rows = []
-    for name, inp, dirs, contacts in zip(sampled.chain_names, sampled.inputs, motion.dirs, motion.contact_counts):
+    for chain, inp, dirs, contacts in zip(chains, sampled.inputs, motion.dirs, motion.contact_counts):
+        name = chain.name
         ang = swing_angles(inp.target_dirs, dirs)
         settle = None
         if touchdown is not None:
@@ -394,7 +397,7 @@ def simulate_summary(obj, scene, chains):
         rows.append({"chain": name, "bones": len(inp.lengths_m),
                      "max_swing_deg": round(math.degrees(float(ang.max())), 3),
                      "settle_frame_after_landing": settle, "last_touchdown_frame": touchdown,
-                     "collider_contacts": int(np.sum(contacts))})
+                     "collider_contacts": int(np.sum(contacts)), "driven_by": chain_sim.chain_notes(obj, chain)})
     return rows, (start, end)
 
 
@@ -416,6 +419,8 @@ def cmd_simulate(args, io):
                     f"settles at frame {r['settle_frame_after_landing']:.0f}"
                 io.out.write(f"{r['chain']}: {r['bones']} bones, max swing {r['max_swing_deg']:.1f}°, {settle}, "
                              f"{r['collider_contacts']} collider contacts\n")
+                for note in r["driven_by"]:
+                    io.out.write(f"  {note}\n")
     return 0
 
 
@@ -441,6 +446,8 @@ def save_blend_atomic(bpy, path, compress=False):
 
 
 def cmd_bake(args, io):
+    if args.check:
+        return check_bake(import_bpy(), args, io.out)
     if args.in_place and args.out:
         raise CliError("use either --in-place or --out, not both")
     if not args.out and not args.in_place:
@@ -474,6 +481,23 @@ def cmd_bake(args, io):
             io.out.write(f"{obj.name} (scene {scene.name}): {len(chains)} chains, {stats.summary()}\n"
                          f"wrote {saved}\n")
     return 0
+
+
+def check_bake(bpy, args, out):
+    """``bake --check``: is the file's bake current, stale (the animation changed after it) or missing?"""
+    from .blender import bake_layer
+    open_blend(bpy, args.file)
+    with addon_registered(bpy):
+        ((obj, scene),) = pick_targets(bpy, args, bake_layer.has_bake, "with an Overlap bake")
+        state = bake_layer.bake_state(obj)
+        line = {None: f"no {bake_layer.BAKE_TRACK_NAME} layer: bake first",
+                "current": "the bake is current",
+                "stale": "the bake is stale: the animation changed after the bake; bake again"}[state]
+        if args.json:
+            out.write(json.dumps({"armature": obj.name, "bake": state or "none"}) + "\n")
+        else:
+            out.write(f"{obj.name}: {line}\n")
+    return 0 if state == "current" else 1
 
 
 def cmd_batch(args, io):

@@ -1,4 +1,8 @@
-"""Blender layer: registration in one place, symmetric (everything added is removed in reverse)."""
+"""Blender layer: registration in one place, symmetric (everything added is removed in reverse).
+
+The headless command (``blender --command overlap_assist``) is registered by the package's own
+``register`` (``overlap_assist/__init__.py``), so this layer never imports the CLI that uses it.
+"""
 import contextlib
 
 import bpy
@@ -7,17 +11,12 @@ from . import analyze, bake_ops, chains, panels, preview, properties
 
 classes = (*properties.classes, *analyze.classes, *chains.classes, *bake_ops.classes, *panels.classes)
 
-_cli_handles = []
-
 
 def register():
     for cls in classes:
         bpy.utils.register_class(cls)
     bpy.types.Object.overlap_assist = bpy.props.PointerProperty(type=properties.OverlapAssistSettings)
     preview.register()
-    if hasattr(bpy.utils, "register_cli_command"):
-        from .. import cli
-        _cli_handles.append(bpy.utils.register_cli_command("overlap_assist", cli.blender_command))
 
 
 @contextlib.contextmanager
@@ -34,8 +33,6 @@ def registered():
 
 
 def unregister():
-    while _cli_handles:
-        bpy.utils.unregister_cli_command(_cli_handles.pop())
     preview.unregister()
     del bpy.types.Object.overlap_assist
     for cls in reversed(classes):

@@ -4,7 +4,7 @@ import time
 import bpy
 
 from ..core.errors import OverlapAssistError
-from . import bake_layer
+from . import bake, bake_layer
 from .selection import armature_poll, bone_selected
 from .op_errors import guarded
 
@@ -68,24 +68,57 @@ def offsets_by_bone(sampled, offsets):
     return out
 
 
+def chain_drives(obj, chains):
+    """Per chain, [rig_drive.Drive]: which bones the keys go on; refuses what cannot be keyed."""
+    from . import chain_check, rig_drive
+    chain_check.check_chains(obj, chains)
+    drives = [rig_drive.resolve_chain(obj, c.bone_names()) for c in chains]
+    problem = chain_check.shared_problem([(c.name, [d.key_bone for d in ds]) for c, ds in zip(chains, drives)])
+    problem = problem or chain_check.lock_problem(obj, [d.key_bone for ds in drives for d in ds])
+    if problem:
+        raise bake_layer.BakeError(problem)
+    return drives
+
+
 def bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False):
     """The bake as a generator: yields the fraction done, returns (BakeStats, SampledRig, ChainMotion).
 
-    Sampling the rig is the long part and comes first; closing the generator there (a cancelled
-    bake) leaves the scene as it was. Solving and writing then run to the end in one go.
+    Stages: which bones take the keys (``rig_drive``), sampling the animated rig (the long part;
+    closing the generator there, a cancelled bake, leaves the scene as it was), the solver, the
+    key bones' rotations where constraints sit in between (``control_solve``, by evaluating the
+    rig), and the bake (``bake``).
     """
-    from . import chain_sim
+    from . import chain_sim, control_solve, rig_drive
+    drives = chain_drives(obj, chains)
+    solved = [i for i, ds in enumerate(drives) if rig_drive.needs_solving(ds)]
+    share = 0.45 if solved else 0.8
     sampling = chain_sim.sample_rig_steps(obj, scene, chains, frame_start, frame_end)
     try:
         while True:
-            yield 0.8 * next(sampling)
+            yield share * next(sampling)
     except StopIteration as done:
         sampled = done.value
     motion, offsets = chain_sim.solve(sampled, chain_sim.settings_for(obj, scene, chains))
+    by_bone = offsets_by_bone(sampled, offsets)
+    for i in solved:
+        for name in sampled.bone_names[i]:
+            del by_bone[name]
+    if solved:
+        steps = control_solve.solve_steps(obj, scene, sampled.frames, [drives[i] for i in solved],
+                                          [motion.dirs[i] for i in solved])
+        try:
+            while True:
+                yield share + (0.8 - share) * next(steps)
+        except StopIteration as done:
+            by_bone.update(done.value[0])
     yield 0.85
-    stats = bake_layer.bake_offsets(obj, sampled.frames.astype(int), offsets_by_bone(sampled, offsets),
-                                    tolerance_deg=tolerance_deg, into_action=into_action,
-                                    influence=obj.overlap_assist.bake_influence, scene=scene)
+    # Through constraints a key bone's error reaches every bone after it (Copy Rotation chains
+    # count it again per link): those chains bake at the tolerance shared out over their links.
+    tighter = {d.key_bone: tolerance_deg / len(drives[i]) for i in solved for d in drives[i]}
+    stats = bake.bake_offsets(obj, sampled.frames.astype(int), by_bone,
+                              tolerance_deg=tolerance_deg, into_action=into_action,
+                              influence=obj.overlap_assist.bake_influence, scene=scene,
+                              tolerance_by_bone_deg=tighter)
     return stats, sampled, motion
 
 
@@ -123,7 +156,9 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
         s = obj.overlap_assist
         names = None
         if s.bake_scope == "SELECTED":
-            names = {c.name for c in s.chains if any(bone_selected(obj, b) for b in c.bone_names())}
+            from . import rig_drive   # a chain counts as selected by its own bones or the controls it keys
+            names = {c.name for c in s.chains
+                     if any(bone_selected(obj, b) for b in c.bone_names() + rig_drive.key_bones(obj, c.bone_names()))}
             if not names:
                 raise OverlapAssistError("no chain has a selected bone: select chain bones or bake all chains")
         chains = chain_sim.active_chains(obj, names)

@@ -45,6 +45,23 @@ def split_chains(selected, parent_of, children_of):
     return chains
 
 
+def chain_check_notes(obj, names):
+    """Check a new chain (raises OverlapAssistError naming the bone and what to do); returns lines
+    saying which bones its keys go on where constraints sit in between."""
+    from . import chain_check, rig_drive
+    problem = chain_check.path_problem(obj, names)
+    if problem:
+        raise OverlapAssistError(f"chain {names[0]} {problem}")
+    drives = rig_drive.resolve_chain(obj, names)
+    problem = chain_check.lock_problem(obj, [d.key_bone for d in drives])
+    if problem:
+        parent = obj.data.bones[drives[0].key_bone].parent
+        if parent is not None and not any(obj.pose.bones[parent.name].lock_rotation):
+            problem += f" (it follows {parent.name}: select the bones of that chain instead)"
+        raise OverlapAssistError(problem)
+    return [d.note() for d in drives if d.note()]
+
+
 def user_preset_dir():
     return os.path.join(bpy.utils.user_resource('CONFIG', path="overlap_assist"), "presets")
 
@@ -116,8 +133,14 @@ class OVERLAP_ASSIST_OT_add_chains(bpy.types.Operator):
         fps = context.scene.render.fps / context.scene.render.fps_base
         added, skipped = 0, []
         doc = load_preset(self.preset) if self.preset else None
+        fresh = [g for g in groups if not any(b in taken for b in g)]
+        try:
+            notes = [note for g in fresh for note in chain_check_notes(obj, g)]
+        except OverlapAssistError as exc:
+            self.report({'ERROR'}, f"{exc} (no chain was added)")
+            return {'CANCELLED'}
         for group in groups:
-            if any(b in taken for b in group):
+            if group not in fresh:
                 skipped.append(group[0])
                 continue
             chain = settings.chains.add()
@@ -134,7 +157,7 @@ class OVERLAP_ASSIST_OT_add_chains(bpy.types.Operator):
         if not added:
             return {'CANCELLED'}
         self.report({'INFO'}, f"Added {added} chain{'s' if added != 1 else ''} "
-                              f"({sum(len(g) for g in groups)} bones)")
+                              f"({sum(len(g) for g in fresh)} bones)" + "".join(f"; {n}" for n in notes))
         return {'FINISHED'}
 
 
@@ -259,6 +282,17 @@ class OVERLAP_ASSIST_OT_remove_collider(bpy.types.Operator):
         return {'FINISHED'}
 
 
+def _preview_can_pose(obj, chains):
+    """The preview poses chain bones directly; chains moved through constraints need the bake."""
+    from . import rig_drive
+    for c in chains:
+        drives = rig_drive.resolve_chain(obj, c.bone_names())
+        if rig_drive.needs_solving(drives):
+            raise OverlapAssistError(
+                f"chain '{c.name}' is moved through constraints ({drives[0].note()}): the live preview cannot "
+                "show it; bake it (the bake solves for the controls that reach it)")
+
+
 @guarded
 class OVERLAP_ASSIST_OT_toggle_preview(bpy.types.Operator):
     """Show the chains' simulated motion while scrubbing or playing, without creating keys"""
@@ -276,7 +310,7 @@ class OVERLAP_ASSIST_OT_toggle_preview(bpy.types.Operator):
             self.report({'INFO'}, "Preview off: animated pose restored")
             return {'FINISHED'}
         try:
-            chain_sim.active_chains(obj)
+            _preview_can_pose(obj, chain_sim.active_chains(obj))
             preview.PREVIEW.start(obj)
             with preview.suspended():
                 preview.PREVIEW.ensure_solved(obj, scene)

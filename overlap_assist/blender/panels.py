@@ -101,7 +101,7 @@ class VIEW3D_PT_overlap_assist_body_options(OverlapPanelMixin, bpy.types.Panel):
 
 class OVERLAP_ASSIST_UL_chains(bpy.types.UIList):
     def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index=0):
-        from .chain_sim import chain_problem
+        from .chain_sim import chain_notes, chain_problem
         problem = chain_problem(context.active_object, item)
         row = layout.row(align=True)
         row.prop(item, "name", text="", emboss=False, icon='ERROR' if problem else 'BONE_DATA')
@@ -146,7 +146,7 @@ class VIEW3D_PT_overlap_assist_chains(OverlapPanelMixin, bpy.types.Panel):
 
     def draw(self, context):
         from . import preview
-        from .chain_sim import chain_problem
+        from .chain_sim import chain_notes, chain_problem
         layout = self.layout
         obj = context.active_object
         s = obj.overlap_assist
@@ -167,6 +167,9 @@ class VIEW3D_PT_overlap_assist_chains(OverlapPanelMixin, bpy.types.Panel):
         problem = chain_problem(obj, chain)
         if problem:
             layout.label(text=f"Chain {chain.name} {problem}", icon='ERROR')
+        else:
+            for note in chain_notes(obj, chain):
+                layout.label(text=note, icon='CONSTRAINT_BONE')
         layout.label(text=" → ".join(chain.bone_names()) or "(no bones)")
         row = layout.row(align=True)
         row.operator_menu_enum("overlap_assist.apply_preset", "preset", text=chain.preset or "Preset")
@@ -217,6 +220,8 @@ class VIEW3D_PT_overlap_assist_bake(OverlapPanelMixin, bpy.types.Panel):
         layout.operator("overlap_assist.bake_chains", text="Write into the Action…").into_action = True
         if bake_layer.has_bake(obj):
             layout.prop(s, "bake_influence")
+            if bake_layer.bake_state(obj) == "stale":
+                layout.label(text=bake_layer.STALE_MESSAGE, icon='ERROR')
         if s.last_bake:
             layout.label(text=s.last_bake, icon='INFO')
 

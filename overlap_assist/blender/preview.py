@@ -6,13 +6,13 @@ removed on unregister and when a file is loaded. Chain-setting edits re-solve fr
 samples (fast); edits to the animation (an Action datablock updated) re-sample the rig.
 Turning the preview off puts back the animated pose exactly.
 """
-import contextlib
 import time
 
 import bpy
 import numpy as np
 
 from ..core.rotations import quat_multiply
+from . import frame_guard
 
 
 class PreviewCache:
@@ -31,7 +31,6 @@ class PreviewCache:
 class PreviewOwner:
     def __init__(self):
         self.caches = {}              # object name -> PreviewCache
-        self.busy = False
         self.last_cost_s = 0.0
 
     # -- state
@@ -68,14 +67,10 @@ class PreviewOwner:
         self.caches.clear()
         _uninstall()
 
-    @contextlib.contextmanager
-    def suspended(self):
-        was = self.busy
-        self.busy = True
-        try:
-            yield
-        finally:
-            self.busy = was
+    @staticmethod
+    def suspended():
+        """Frame changes inside do not pose bones (see frame_guard)."""
+        return frame_guard.held()
 
     def mark_dirty(self, settings_only=False):
         for cache in self.caches.values():
@@ -163,7 +158,7 @@ def _write_quaternion(pb, q):
 
 @bpy.app.handlers.persistent
 def _on_frame_change(scene, depsgraph=None):
-    if PREVIEW.busy:
+    if frame_guard.is_held():
         return
     start = time.perf_counter()
     with PREVIEW.suspended():
@@ -183,7 +178,7 @@ def _on_frame_change(scene, depsgraph=None):
 
 @bpy.app.handlers.persistent
 def _on_depsgraph_update(scene, depsgraph):
-    if PREVIEW.busy or not PREVIEW.caches:
+    if frame_guard.is_held() or not PREVIEW.caches:
         return
     for update in depsgraph.updates:
         if isinstance(update.id, bpy.types.Action):

@@ -63,7 +63,9 @@ def test_bake_matches_the_preview_and_remove_restores(rig):
 def test_analysis_after_a_bake_keeps_the_layer(rig):
     op(rig, "bake_chains")
     assert op(rig, "analyze_motion") == {'FINISHED'}
-    assert rig.animation_data.action is None and bake_layer.has_bake(rig)
+    # The load curve goes into the user's action (still active) and does not make the bake stale.
+    assert rig.animation_data.action.name == "HeroAction" and bake_layer.has_bake(rig)
+    assert bake_layer.bake_state(rig) == "current"
 
 
 def test_bake_with_a_deleted_chain_bone_is_refused_and_changes_nothing(rig):

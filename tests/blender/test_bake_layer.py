@@ -11,9 +11,11 @@ import pytest
 from blender_helpers import action_digest
 from mathutils import Euler, Matrix, Quaternion
 
-from overlap_assist.blender import anim_data, bake_layer, bake_ops
-from overlap_assist.blender.bake_layer import BakeError, bake_offsets, remove_bake
+from overlap_assist.blender import anim_data, bake, bake_layer, bake_ops, pose_read
+from overlap_assist.blender.bake import bake_offsets
+from overlap_assist.blender.bake_layer import BakeError, remove_bake
 from overlap_assist.blender.demo_scene import build_armature
+from overlap_assist.core.rotations import compose_euler
 
 BONES = (
     ("root", None, (0, 0, 0), (0, 0.3, 0)),
@@ -26,7 +28,7 @@ BONES = (
 CHAIN = ("c0", "c1", "c2", "c3")
 KEY_FRAMES = np.arange(1, 82, 8)          # base keys, frames 1..81
 BAKE_FRAMES = np.arange(10, 71)           # baked range, inside the base range
-MODES = ("QUATERNION",) + bake_layer.EULER_ORDERS
+MODES = ("QUATERNION",) + bake.EULER_ORDERS
 POSE_ATOL = 1e-5   # brief: evaluated pose = animated ∘ offset within 1e-5 (keys stored as float32, ~1e-7)
 # Widened for quaternion bones on the layer, reason: Blender's COMBINE raises the (normalised) offset
 # quaternion to the strip influence as angle = acos(w) in float32 (pow_qt_fl_normalized in its NLA
@@ -128,10 +130,16 @@ def assert_composed(obj, rot, expected, offsets):
 
 
 def assert_curves_hold_offsets(obj, offsets, frames):
-    """Blender's FCurve.evaluate of the written quaternion curves = the offsets (up to sign)."""
+    """Blender's FCurve.evaluate of the written quaternion curves = the offsets (up to sign),
+    conjugated by the user's action U where it animates the bone (U ∘ offset ∘ U⁻¹, mathutils)."""
     curves = bake_fcurves(obj)
+    user = anim_data.active_fcurves(obj)
     for bone, q in offsets.items():
         path = obj.pose.bones[bone].path_from_id("rotation_quaternion")
+        if user.fcurves.find(path, index=0) is not None:
+            u = [Quaternion([user.fcurves.find(path, index=i).evaluate(f) for i in range(4)]).normalized()
+                 for f in frames]
+            q = np.array([list(uk @ Quaternion(qk) @ uk.inverted()) for uk, qk in zip(u, q)])
         got = np.array([[curves[(path, i)].evaluate(f) for i in range(4)] for f in frames])
         sign = np.sign(np.sum(got * q, axis=1))[:, None]
         assert np.max(np.abs(got - sign * q)) < CURVE_ATOL
@@ -156,7 +164,9 @@ def test_layer_is_animated_pose_times_offset_and_removal_restores(mode):
     stats = bake_offsets(obj, BAKE_FRAMES, offsets, tolerance_deg=0.0)
     assert stats.keys_written == stats.keys_before == (4 if mode == "QUATERNION" else 3) * 4 * len(BAKE_FRAMES)
     ad = obj.animation_data
-    assert [t.name for t in ad.nla_tracks] == [bake_layer.BASE_TRACK_NAME, bake_layer.BAKE_TRACK_NAME]
+    # The user's action stays active (new keys land in it), at COMBINE over the layer under it.
+    assert [t.name for t in ad.nla_tracks] == [bake_layer.BAKE_TRACK_NAME]
+    assert ad.action == base and ad.action_blend_type == 'COMBINE'
     assert ad.nla_tracks[-1].strips[0].blend_type == 'COMBINE'
     # Reference: Blender's evaluated pose vs mathutils animated ∘ offset.
     rot1, loc1 = sample_pose(obj, BAKE_FRAMES)
@@ -236,7 +246,9 @@ def test_reduction_stays_within_tolerance_with_far_fewer_keys(mode):
             path = obj.pose.bones[bone].path_from_id("rotation_quaternion")
             got = np.array([[curves[(path, i)].evaluate(f) for i in range(4)] for f in frames])
             got /= np.linalg.norm(got, axis=1, keepdims=True)
-            dots = np.abs(np.sum(got * offsets[bone], axis=1))
+            ref = np.stack([exact[(path, i)] for i in range(4)], axis=1)   # the per-frame layer values
+            ref /= np.linalg.norm(ref, axis=1, keepdims=True)
+            dots = np.abs(np.sum(got * ref, axis=1))
             angle = 2 * np.arccos(np.clip(dots, -1, 1))
             assert np.rad2deg(angle.max()) <= tol_deg
     else:
@@ -256,7 +268,7 @@ def test_rebake_replaces_only_its_layer_and_is_identical():
     bake_offsets(obj, BAKE_FRAMES, offsets)
     assert action_digest(bake_layer.find_bake(obj)[2]) == first
     assert len(bpy.data.actions) == n_actions
-    assert [t.name for t in obj.animation_data.nla_tracks] == [bake_layer.BASE_TRACK_NAME, bake_layer.BAKE_TRACK_NAME]
+    assert [t.name for t in obj.animation_data.nla_tracks] == [bake_layer.BAKE_TRACK_NAME]
     assert action_digest(base) == digest
 
 
@@ -276,7 +288,7 @@ def test_existing_user_tracks_are_kept_and_restored():
     rot0, loc0 = sample_pose(obj, BAKE_FRAMES)
     offsets = damped_offsets()
     bake_offsets(obj, BAKE_FRAMES, offsets, tolerance_deg=0.0)
-    assert [t.name for t in ad.nla_tracks] == ["User Layer", bake_layer.BASE_TRACK_NAME, bake_layer.BAKE_TRACK_NAME]
+    assert [t.name for t in ad.nla_tracks] == ["User Layer", bake_layer.BAKE_TRACK_NAME]
     rot1, loc1 = sample_pose(obj, BAKE_FRAMES)
     assert_composed(obj, rot1, expected_composition(obj, rot0, offsets), offsets)
     assert np.max(np.abs(loc1 - loc0)) < POSE_ATOL
@@ -419,7 +431,7 @@ def test_undo_after_bake_restores_the_scene():
     assert (obj.animation_data.action.name,) + assignment(obj)[1:] == assign0
 
 
-@pytest.mark.parametrize("order", bake_layer.EULER_ORDERS)
+@pytest.mark.parametrize("order", bake.EULER_ORDERS)
 def test_numpy_euler_composition_matches_mathutils(order):
     """Reference: mathutils, frame by frame: (Euler(basis).to_matrix() @ Quaternion(offset).to_matrix())
     .to_euler(order, Euler(basis + previous offset)). mathutils computes in float32: 1e-5 rad."""
@@ -430,7 +442,7 @@ def test_numpy_euler_composition_matches_mathutils(order):
     basis[:, first] = 2.6 + 1.3 * t       # crosses pi
     offsets = damped_offsets(bones=("a", "b"), frames=frames, amp_deg=40.0)
     stacked = np.stack([offsets["a"], offsets["b"]])
-    ours = bake_layer.compose_euler(np.stack([basis, -basis]), order, stacked)
+    ours = compose_euler(np.stack([basis, -basis]), order, stacked)
     for b, sign in enumerate((1.0, -1.0)):
         prev = np.zeros(3)
         for k in range(len(frames)):
@@ -447,8 +459,8 @@ def test_sampling_by_fcurve_evaluate_equals_setting_each_frame(mode):
     obj = make_rig(mode)
     scene = bpy.context.scene
     names = list(CHAIN) + ["arm"]
-    assert set(bake_layer.plain_channel_fcurves(obj, scene, names)) == set(names)
-    fast = bake_layer.sample_rotations(obj, scene, BAKE_FRAMES, names)
+    assert set(pose_read.plain_channel_fcurves(obj, scene, names)) == set(names)
+    fast = pose_read.sample_rotations(obj, scene, BAKE_FRAMES, names)
     prop = "rotation_quaternion" if mode == "QUATERNION" else "rotation_euler"
     for k, f in enumerate(BAKE_FRAMES):
         scene.frame_set(int(f))
@@ -463,22 +475,50 @@ def test_driven_or_layered_channels_are_sampled_by_the_scene():
     scene = bpy.context.scene
     fc = obj.driver_add('pose.bones["c1"].rotation_euler', 0)
     fc.driver.type = 'SUM'   # no Python: a driver without variables gives 0
-    plain = bake_layer.plain_channel_fcurves(obj, scene, list(CHAIN))
+    plain = pose_read.plain_channel_fcurves(obj, scene, list(CHAIN))
     assert "c1" not in plain and "c0" in plain
     obj.driver_remove('pose.bones["c1"].rotation_euler', 0)
     bag = anim_data.active_fcurves(obj)
     curves = {(fc.data_path, fc.array_index): fc for fc in bag.fcurves}
     curves[('pose.bones["c2"].rotation_euler', 1)].mute = True       # a muted curve
     curves[('pose.bones["c3"].rotation_euler', 0)].group.mute = True  # a muted group
-    plain = bake_layer.plain_channel_fcurves(obj, scene, list(CHAIN))
+    plain = pose_read.plain_channel_fcurves(obj, scene, list(CHAIN))
     assert set(plain) == {"c0", "c1"}
     # Reference: Blender's evaluation of the muted channels (frame_set, read back) equals what the
     # bake samples for them.
-    sampled = bake_layer.sample_rotations(obj, scene, BAKE_FRAMES[:5], ["c2", "c3"])
+    sampled = pose_read.sample_rotations(obj, scene, BAKE_FRAMES[:5], ["c2", "c3"])
     for k, f in enumerate(BAKE_FRAMES[:5]):
         scene.frame_set(int(f))
         for bone in ("c2", "c3"):
             np.testing.assert_array_equal(sampled[bone][k].astype(np.float32),
                                           np.array(obj.pose.bones[bone].rotation_euler, dtype=np.float32))
     obj.animation_data.nla_tracks.new()
-    assert bake_layer.plain_channel_fcurves(obj, scene, list(CHAIN)) == {}
+    assert pose_read.plain_channel_fcurves(obj, scene, list(CHAIN)) == {}
+
+
+def test_a_replace_action_sharing_a_channel_with_a_user_track_is_refused_and_nothing_changes():
+    obj = make_rig()
+    ad = obj.animation_data
+    user_act = bpy.data.actions.new("Sway")   # a user track animating the root's location, as the action does
+    slot = user_act.slots.new(id_type='OBJECT', name=obj.name)
+    bag = anim_data.channelbag_for(user_act, slot, create=True)
+    anim_data.write_keys(bag.fcurves.new('pose.bones["root"].location', index=0), [1, 81], [0, 1], 'BEZIER')
+    track = ad.nla_tracks.new()
+    track.name = "Sway"
+    track.strips.new("Sway", 1, user_act).action_slot = slot
+    before = assignment(obj)
+    with pytest.raises(BakeError, match=r"'Sway' both animate pose.bones\[\"root\"\].location: push the action down"):
+        bake_offsets(obj, BAKE_FRAMES, damped_offsets())
+    assert assignment(obj) == before and not bake_layer.has_bake(obj)
+
+
+def test_the_action_plays_as_before_outside_its_keys_under_the_layer():
+    """The action stays active at COMBINE: F-curve extrapolation beyond its keys is unchanged."""
+    obj = make_rig("XYZ")
+    for fc in anim_data.active_fcurves(obj).fcurves:
+        fc.extrapolation = 'LINEAR'
+    outside = np.arange(82, 100)
+    rot0, loc0 = sample_pose(obj, outside)
+    bake_offsets(obj, BAKE_FRAMES, damped_offsets(), tolerance_deg=0.0)
+    rot1, loc1 = sample_pose(obj, outside)
+    assert np.max(np.abs(rot1 - rot0)) < POSE_ATOL and np.max(np.abs(loc1 - loc0)) < POSE_ATOL
