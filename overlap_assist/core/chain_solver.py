@@ -1,48 +1,71 @@
-"""Secondary motion of bone chains: damped links hanging from an animated body.
+"""Secondary motion of bone chains: coupled multibody chains hanging from an animated body.
 
 Model
 -----
-Each link is a **uniform rigid rod pivoted at its head** (the bone's head), hanging from the
-end of its parent link (the first link from the animated pivot). A rod turns about its head
-with angular acceleration ``(3 / 2L) d x f`` under a uniform felt acceleration ``f``
-(torque ``m f L/2`` over inertia ``m L^2 / 3``), so a single free link swings with the period
-of a physical pendulum, ``2 pi sqrt(2L / 3g)``.
+A chain of ``n`` links hangs from an animated **anchor** (the head of its first bone). Link
+``j`` is a **uniform rigid rod** of length ``L_j`` whose mass goes with its length and its
+thickness squared (``thickness_taper`` thins it linearly from root to tip); an optional point
+mass hangs at the chain's end (``tip_mass_ratio`` x the chain's mass). The links are joined at
+their ends; each turns freely in swing (no twist). The generalised coordinates are the unit
+link directions ``d_j``; with ``p_0`` the anchor, link j's centre is
+``p_0 + sum_{k<j} L_k d_k + L_j d_j / 2``, so the kinetic energy of the motion relative to the
+anchor is ``1/2 sum_jk M_jk d_j' . d_k'`` with the constant symmetric positive-definite matrix
 
-The acceleration a link feels at its head is
+    M_jj = L_j^2 (m_j / 3 + S_j),   M_jk = L_j L_k (m_k / 2 + S_k)  (j < k),
 
-    f = gravity_scale g - body_response a_anchor - (acceleration of the parent links' ends)
-        - air_drag (velocity of its head),
+``S_k`` the mass below link k (tip mass included). A uniform felt acceleration ``f`` (gravity
+x gravity_scale, minus body_response x the anchor's acceleration, minus air drag x the anchor's
+velocity) acts on link j with the generalised force ``b_j f``, ``b_j = L_j (m_j / 2 + S_j)``.
+Lagrange's equations with one multiplier per link for ``|d_j| = 1`` (Goldstein, *Classical
+Mechanics*, ch. 1-2) are
 
-so a chain whose anchor falls freely (``a_anchor = g``) feels no weight and floats, is
-dragged on push-off and whips on landing. Air drag on the rod's absolute velocity adds
-``-air_drag`` x its own angular velocity. The coupling is one way, root to tip: a link follows
-its parent's end but does not pull back on it (the body and the parent links are taken to be
-much heavier than what hangs below them). The chain's total energy is therefore not a
-conserved quantity of the model; a single link's is.
+    sum_k M_jk d_k'' = b_j f - dV/dd_j - [C (d' - d'_anim)]_j - air_drag [M d']_j + lambda_j d_j,
 
-An angular spring pulls each link toward its animated direction with the link's frequency
-``omega_i = 2 pi frequency_hz (1 - tip_looseness i / (n - 1))``; a damper acts on the link's
-motion relative to the animated motion with coefficient
-``2 damping_ratio sqrt(omega_i^2 + omega_g^2)``, ``omega_g^2 = (3 / 2L) gravity_scale |g|``
-(the hanging rod's own pendulum stiffness), so the damping ratio stays meaningful without a
-spring. Each link may not leave a cone of ``bend_limit_rad`` around its animated direction,
-and its end is kept out of sphere and capsule colliders and above the ground (``colliders``).
+so each link's inertia and everything hanging below it act back on its parent through the joint
+(the off-diagonal M_jk): the chain is two-way coupled, conserves energy without damping and
+drag, and conserves angular momentum about its anchor in free fall. A single link is the
+physical pendulum ``d'' = (3 / 2L) f`` (tangential), period ``2 pi sqrt(2L / 3g)``.
+
+Joint springs pull the chain toward the animated pose: with the deviations ``e_j = d_j - t_j``
+from the animated directions, ``V = sum_j k_j / 2 |e_j - e_(j-1)|^2`` (``e_(-1) = 0``: the root
+joint pulls toward the anchor's pose). For small angles ``|e_j - e_(j-1)|`` is the bend of joint j
+away from its animated bend (exact where the neighbours are animated parallel); its stiffness
+matrix ``K_s`` is tridiagonal and constant. ``k_j = kappa (1 - tip_looseness pos_j)^2 M_jj``
+(pos_j from 0 at the root to 1 at the tip), and kappa is chosen so that the **lowest mode of the
+springs alone** (generalised eigenproblem ``K_s v = w^2 M v``) is ``2 pi frequency_hz``: the
+frequency describes the whole chain, not a link. The damper acts on the motion relative to the
+animated motion (``d'_anim = w_anim x d``) with the Rayleigh matrix ``C = alpha M + beta K``,
+``K = K_s + diag(b_j gravity_scale |g|)`` the stiffness of the chain hanging straight down,
+``alpha = zeta w_1``, ``beta = zeta / w_1`` (w_1 the lowest mode of (K, M)): the lowest mode is
+damped with exactly ``damping_ratio`` and every higher mode more (Rayleigh damping keeps the
+modes uncoupled; Clough & Penzien, *Dynamics of Structures*, Sec. 12-5, from memory).
+
+Each link may not leave a cone of ``bend_limit_rad`` around its animated direction, and its end
+is kept out of sphere and capsule colliders and above the ground (``colliders``).
 
 Integration
 -----------
-The state of a link is its direction ``d`` (unit) and its rate ``d'`` (perpendicular to d).
-Per sub-step the rate is advanced by the trapezoidal rule, linearised about the current state
-(stiffness = the spring plus the felt load's pull where the link hangs along it; damping =
-damper + air drag): A-stable, so stable for every stiffness, damping and step, and free of
-numerical damping of an undamped spring (Hairer, Lubich & Wanner 2003 discuss the
-trapezoidal / Stormer-Verlet family). The direction then turns along the great circle of the
-mean rate by the Cayley form of the rotation (angle ``2 atan(h w / 2)``), which keeps ``|d| = 1``
-and carries the rate along exactly. Sub-steps are added automatically where a setting is too
-stiff for the frame rate to be followed accurately (not needed for stability). Arithmetic is
-fixed-order numpy, so identical input gives bit-identical output.
+Per sub-step ``h`` the tangential accelerations ``a_j`` solve the linearly implicit trapezoidal
+(average-acceleration) step
 
-Pre-roll: the chain starts at rest in the static equilibrium of frame 0 (spring against the
-frame's felt acceleration, per link), moving with the animated motion.
+    (M + h/2 (C + drag M) + h^2/4 (K_s + diag(b_j |f|))) a = Q(d + h/2 d', d') + lambda d,   d_j . a_j = 0,
+
+with ``Q`` the right-hand side above evaluated at the predicted mid-step directions (load,
+springs) and the current rates (damping, and ``M (|d'|^2 d)``, the centripetal coupling). The
+constraint is solved by the Schur complement: with ``S^-1`` per chain, one small symmetric
+``n x n`` solve per chain per sub-step gives the multipliers, all chains at once. The stiffness
+on the left bounds the chain's true tangent stiffness from above (gravity's pull is
+``b_j f . d_j <= b_j |f|``): for a linear system this step keeps a quadratic energy exactly
+(determinant 1, Newmark's average-acceleration method; Hairer, Lubich & Wanner 2003) and is
+stable for every stiffness, damping and step; where the load exceeds its bound nothing is left
+explicit. Each direction then turns along the great circle of its mean rate by the Cayley form
+of the rotation (angle ``2 atan(h w / 2)``), which keeps ``|d| = 1`` and carries the rate along.
+Sub-steps are added automatically where the chain's highest mode or damping is too fast for the
+frame rate to be followed accurately (not needed for stability). Arithmetic is fixed-order numpy,
+so identical input gives bit-identical output.
+
+Pre-roll: the chain starts at rest in the static equilibrium of frame 0 (joint springs against
+the frame's felt acceleration, the whole chain at once), moving with the animated motion.
 """
 from __future__ import annotations
 
@@ -50,17 +73,24 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from .chain_setup import ROD_LEVER, SPRING_FLOOR, initial_state, package, prepare
+from .chain_setup import initial_state, package, prepare
 from .chain_types import ChainInput, ChainMotion, ChainSettings, ChainState, Colliders
-from .colliders import any_perpendicular, project_out
+from .colliders import any_perpendicular, dot, project_out
 from .swing import swing_offsets  # noqa: F401  (part of the solver's public API)
 
-__all__ = ["simulate_chains", "limit_bend", "swing_offsets"]
+__all__ = ["simulate_chains", "limit_bend", "swing_offsets", "constrained_solve", "chain_energy"]
 
 _TINY = 1e-12
 
 _CHUNK_FRAMES = 32
 """Frames whose sub-step inputs are prepared together (bounds memory for long shots)."""
+
+ROTATION_STEP_MAX = 0.25
+"""Largest turn of a link (rad) per step: the centripetal coupling between links is explicit,
+so a faster-spinning step is split (deterministically, from the state) into shorter ones."""
+
+MAX_SPLIT = 256
+"""Most pieces a split step is cut into."""
 
 
 def simulate_chains(
@@ -95,348 +125,212 @@ def simulate_chains(
     prep = prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states)
     n_frames, n_sub = prep["n_frames"], prep["n_sub"]
     n_chains, n_links = prep["n_chains"], prep["n_links"]
-    co = _Kernel(prep, dt_s / n_sub)
-    # Component-first layout inside the loop, (3, C, N) seen as (3, M), M = C*N: every per-link
-    # scalar is kept replicated on the 3 rows, so the kernel needs no broadcasting. The inputs
-    # are laid out with M last as well (numpy's inner loops then run over M, not over N).
-    flat = (3, n_chains * n_links)
+    h = dt_s / n_sub
+    shape = (n_chains, n_links)
 
-    def per_link(arr):  # (T, C, 3) per chain -> (T, 3, M)
-        return np.repeat(arr.transpose(0, 2, 1), n_links, axis=-1)
+    def per_chain(arr):  # (T, 3, M) rows -> (T, C, N, 3)
+        return np.moveaxis(arr.reshape(arr.shape[0], 3, n_chains, n_links), 1, -1)
 
-    targets, toward = prep["target_rows"], prep["toward"]  # (T, 3, M), (T-1, 3, M)
-    # Damper reference: animated angular velocity x the damper's share of damping, (T-1, 3, M).
-    spin = prep["spin"] * prep["relative_share"].reshape(-1)
-    # ... in the two component orders the projection product needs: (z, x, y) and (y, z, x).
-    spin_rows = np.stack((spin[:, _I2], spin[:, _I1]), axis=1)  # (T-1, 2, 3, M)
-    ang = prep["ang"][:, None]  # (T-1, 1, M)
-    # Lever x the felt acceleration at each chain's pivot, per frame (varies linearly within one).
+    targets = prep["targets"]  # (T, C, N, 3)
+    toward = per_chain(prep["toward"])  # (T-1, C, N, 3)
+    spin = per_chain(prep["spin"])  # animated angular velocity of each link over each frame
+    ang = prep["ang"].reshape(-1, n_chains, n_links)[..., None]  # (T-1, C, N, 1)
     felt = prep["felt_const"][:, 0] - prep["body_response"][:, 0] * prep["anchor_acc"]  # (T, C, 3)
-    if co.any_drag:
+    if bool(np.any(prep["drag"] > 0.0)):
         felt = felt - prep["drag"][:, 0] * prep["anchor_vel"]
-    lever_felt = per_link(felt) * (ROD_LEVER / prep["lengths_safe"]).reshape(-1)
+    inertia, spring, damping, load = prep["inertia"], prep["spring"], prep["damping"], prep["load"]
+    relative = damping - prep["drag"] * inertia  # the damper's share (acts on the relative motion)
+    base = inertia + 0.5 * h * damping + 0.25 * h * h * spring  # (C, N, N), plus the load's part per frame
+    felt_size = np.sqrt(dot(felt, felt))  # (T, C)
+    bound = np.maximum(felt_size[:-1], felt_size[1:])  # |f| within a frame is at most its ends' larger
     limit, coll = prep["bend_limited"], prep["colliders"]
+    cos_lim, sin_lim = prep["cos_lim"], prep["sin_lim"]
+    load3 = load[..., None]
+    inv_inertia = np.linalg.inv(inertia)
+    lengths = prep["lengths_active"]
 
     d, u = initial_state(prep)  # (C, N, 3)
     if coll is not None:
         d, u, _ = _collide(prep, coll, prep["pivots"][0], 0, 0.0, d, u)
-    d = np.moveaxis(d, -1, 0).reshape(flat)
-    u = np.moveaxis(u, -1, 0).reshape(flat)
-    rate_change = np.zeros(flat)  # angular acceleration of each link over the last sub-step
-    out = np.empty((n_frames,) + flat)
+    out = np.empty((n_frames,) + shape + (3,))
     out[0] = d
-    contacts = np.zeros((n_chains, n_links), dtype=np.int64)
-    s_mid = ((np.arange(n_sub) + 0.5) / n_sub)[:, None, None]
-    s_end = ((np.arange(n_sub) + 1.0) / n_sub)[:, None, None]
-    s_end_list = s_end.ravel().tolist()  # the same fractions as Python floats, for the collider calls
-    pair = np.empty((2,) + flat)  # the step's new rate and half turn, side by side
-    broad = _BroadPhase(prep, coll) if coll is not None else None
-    step = co.step
-    buffer = np.empty((min(_CHUNK_FRAMES, max(n_frames - 1, 1)), n_sub, _SLOTS) + flat)  # reused per chunk
+    a_last = np.zeros_like(d)  # the last step's tangential accelerations, carried along
+    contacts = np.zeros(shape, dtype=np.int64)
+    s_mid = (np.arange(n_sub) + 0.5) / n_sub
+    s_end = (np.arange(n_sub) + 1.0) / n_sub
+    eye = np.eye(n_links)
+    drag = prep["drag"]
+
+    def dynamics(d, u, a_last, h, s_inv, s, tk, wk, ak, spk, f0, f1):
+        """One linearly implicit trapezoidal step of length h at fraction s (mid-step) of a frame."""
+        target = tk * np.cos(s * ak) + wk * np.sin(s * ak)
+        f = f0 + s * (f1 - f0)
+        # Half a turn ahead by the current rates (Cayley form, angle ~ h |u| / 2): the mid-step
+        # directions, and the rates carried there. Everything acts there: load and springs,
+        # damping, the coupling through M (its projections on the links' mid-step tangents) and
+        # the centripetal pull of the other links.
+        xh = (0.25 * h) * u
+        sc = 2.0 / (1.0 + dot(xh, xh))[..., None]
+        dxh = d + xh
+        mid = sc * dxh - d
+        u_mid = u - (sc * dot(u, xh)[..., None]) * dxh
+        # The centripetal pull goes with the mean rate's square: predicted with the last
+        # step's acceleration (carried along with the rates), a second-order estimate.
+        u_c = u + (0.5 * h) * a_last
+        u_c = u_c - (sc * dot(u_c, xh)[..., None]) * dxh
+        force = (load3 * f[:, None, :] - spring @ (mid - target)
+                 - relative @ (u_mid - np.cross(spk, mid)) - drag * (inertia @ u_mid)
+                 + inertia @ (dot(u_c, u_c)[..., None] * mid))
+        a_mid = constrained_solve(s_inv, force, mid)
+        # ... and the acceleration carried back to the start's tangents (the inverse half turn:
+        # the two reflections in reverse order), so the full turn below carries it to the end
+        # by the second half turn.
+        z = (sc * dot(a_mid, dxh)[..., None]) * dxh - a_mid
+        a = 2.0 * dot(z, d)[..., None] * d - z
+        u_new = u + h * a
+        x = (0.25 * h) * (u + u_new)
+        scale = 2.0 / (1.0 + dot(x, x))[..., None]
+        dx = d + x
+        return (scale * dx - d, u_new - (scale * dot(u_new, x)[..., None]) * dx,
+                a - (scale * dot(a, x)[..., None]) * dx)
+
     for k0 in range(0, n_frames - 1, _CHUNK_FRAMES):
-        # Inputs of every sub-step of a chunk of frames, computed at once (see _Kernel.step).
         k1 = min(k0 + _CHUNK_FRAMES, n_frames - 1)
-        rows = _sub_step_inputs(buffer[:k1 - k0], targets[k0:k1], toward[k0:k1], ang[k0:k1],
-                                lever_felt[k0:k1 + 1], spin_rows[k0:k1], s_mid)
-        if limit:  # animated directions at the end of each sub-step: the bend cones' axes
-            a_c = ang[k0:k1, None]  # (K, 1, 1, M)
-            t_end = targets[k0:k1, None] * np.cos(s_end * a_c) + toward[k0:k1, None] * np.sin(s_end * a_c)
+        # Per frame of the chunk: the inverse of the step's matrix (the load's stiffness bound varies).
+        s_inv = np.linalg.inv(base + (0.25 * h * h) * (load[None] * bound[k0:k1, :, None])[..., None] * eye)
         for k in range(k0, k1):
-            i = k - k0
-            rows_k = rows[i]
+            sk = s_inv[k - k0]
+            tk, wk, ak, spk = targets[k], toward[k], ang[k], spin[k]
+            f0, f1 = felt[k], felt[k + 1]
             for j in range(n_sub):
-                d, u, rate_change = step(d, u, rate_change, rows_k[j], pair)
+                fast = h * float(np.sqrt(np.max(dot(u, u))))
+                if fast <= ROTATION_STEP_MAX:
+                    d, u, a_last = dynamics(d, u, a_last, h, sk, s_mid[j], tk, wk, ak, spk, f0, f1)
+                else:
+                    # Links spinning by more than ROTATION_STEP_MAX per sub-step (a violent start or
+                    # snap): the explicit centripetal coupling needs shorter steps. Split this one.
+                    parts = min(int(np.ceil(fast / ROTATION_STEP_MAX)), MAX_SPLIT)
+                    hp = h / parts
+                    sp = np.linalg.inv(inertia + 0.5 * hp * damping + 0.25 * hp * hp * spring
+                                       + (0.25 * hp * hp) * (load * bound[k][:, None])[..., None] * eye)
+                    for q in range(parts):
+                        d, u, a_last = dynamics(d, u, a_last, hp, sp, (j + (q + 0.5) / parts) / n_sub, tk, wk, ak, spk, f0, f1)
                 if limit:
-                    d, u = limit_bend(d, u, t_end[i, j], co.cos_lim, co.sin_lim)
-                if coll is not None and broad.maybe_inside(d, k, s_end_list[j]):
-                    d, u, touched = _collide_rows(prep, coll, k, s_end_list[j], d, u)
-                    contacts += touched
+                    sf = s_end[j]
+                    d, u = limit_bend(d, u, tk * np.cos(sf * ak) + wk * np.sin(sf * ak), cos_lim, sin_lim,
+                                      inv_inertia)
+                if coll is not None:
+                    pivot = prep["pivots"][k] + s_end[j] * (prep["pivots"][k + 1] - prep["pivots"][k])
+                    d, u_slid, touched, normals = _collide(prep, coll, pivot, k, float(s_end[j]), d, u, True)
+                    if touched.any():
+                        contacts += touched
+                        u = _contact_impulse(inv_inertia, lengths, d, u - dot(u, d)[..., None] * d, normals)
+            # The turn keeps |d| = 1 and d . u = 0 exactly but for rounding; wash that out.
+            d = d / np.sqrt(dot(d, d))[..., None]
+            u = u - dot(u, d)[..., None] * d
             out[k + 1] = d
-        # The turn keeps |d| = 1 and d . u = 0 exactly but for rounding; wash that out.
-        d = d / np.sqrt(_ONES33 @ (d * d))
-        u = u - (_ONES33 @ (u * d)) * d
-        out[k1] = d
-    out = np.moveaxis(out.reshape(n_frames, 3, n_chains, n_links), 1, -1)
-    rates = np.moveaxis(u.reshape(3, n_chains, n_links), 0, -1)
-    return package(prep, out, rates, contacts)
+    return package(prep, out, u, contacts)
 
 
-_ONES33 = np.ones((3, 3))
-"""``_ONES33 @ (a * b)``: the dot product of a and b, replicated on all three rows."""
+def constrained_solve(s_inv: np.ndarray, rhs: np.ndarray, d: np.ndarray) -> np.ndarray:
+    """Solve ``S a = rhs + lambda d`` with ``d_j . a_j = 0`` for every link, all chains at once.
 
-_ONES66 = np.kron(np.eye(2), _ONES33)
-"""The same for two stacked products of vectors, (6, M)."""
+    ``S`` acts on the link index (the same on x, y, z); ``S^-1`` (C, N, N) is given. Schur
+    complement: ``a = S^-1 rhs + S^-1 (lambda d)`` with ``G lambda = -(d . S^-1 rhs)``,
+    ``G_jk = (S^-1)_jk d_j . d_k`` (symmetric positive definite).
 
-_I1 = np.array([1, 2, 0])
-_I2 = np.array([2, 0, 1])
+    Parameters
+    ----------
+    s_inv : (C, N, N); rhs, d : (C, N, 3)
 
-_SLOTS = 5
-"""Rows of a sub-step's inputs: animated direction, lever x felt load at the pivot, (lever x
-felt load at the link's head, filled in by the step), damper spin (z, x, y), (y, z, x)."""
-
-
-def _projections() -> np.ndarray:
-    """(12, 15) matrix turning the products ``rows * d`` (seen as (15, M)) into
-    [target . d, lever felt_pivot . d, lever felt_head . d] (each on three rows) and
-    spin x d: a dot product is a sum of component products, and a cross product a signed
-    permutation of them, so one matrix product gives all four."""
-    a = np.zeros((12, 3 * _SLOTS))
-    for slot in range(3):
-        a[3 * slot:3 * slot + 3, 3 * slot:3 * slot + 3] = 1.0
-    # (w x d)_x = w_y d_z - w_z d_y, ...: slot 3 holds (w_z, w_x, w_y), slot 4 (w_y, w_z, w_x).
-    for row, plus, minus in ((0, 2, 1), (1, 0, 2), (2, 1, 0)):
-        a[9 + row, 9 + plus] = 1.0
-        a[9 + row, 12 + minus] = -1.0
-    return a
-
-
-_PROJECT = _projections()
-
-_DENSE_TRANSFER_MAX = 160
-"""Up to this many (padded) links in all, the parent-to-child transfer is one dense matrix
-product; above it, one small product per chain (the dense one grows with the square)."""
-
-
-def _along_chains(blocks: np.ndarray) -> np.ndarray:
-    """Per-chain (C, N, N) matrices as one operator on (3, M) rows (links of a chain consecutive):
-    the block-diagonal (M, M) matrix up to _DENSE_TRANSFER_MAX links, else the blocks themselves."""
-    n_chains, n_links = blocks.shape[:2]
-    if n_chains * n_links > _DENSE_TRANSFER_MAX:
-        return blocks
-    dense = np.zeros((n_chains * n_links,) * 2)
-    for c in range(n_chains):
-        sl = slice(c * n_links, (c + 1) * n_links)
-        dense[sl, sl] = blocks[c]
-    return dense
-
-
-def _times_along_chains(rows: np.ndarray, matrix: np.ndarray) -> np.ndarray:
-    """``rows`` (3, M) times an operator from :func:`_along_chains`."""
-    if matrix.ndim == 2:
-        return np.dot(rows, matrix)
-    n_chains, n_links = matrix.shape[:2]
-    return (rows.reshape(3, n_chains, 1, n_links) @ matrix).reshape(rows.shape)
-
-
-class _Kernel:
-    """The step of all links of all chains, with its per-link constants for a sub-step ``h``.
-
-    Arrays are component-first, ``(3, M)`` for the M = C*N (padded) links of C chains (the
-    links of a chain consecutive), each per-link value replicated on the three rows; scalars
-    are kept as arrays too (multiplying by an array is cheaper than by a Python float).
+    Returns
+    -------
+    ndarray (C, N, 3): tangential accelerations.
     """
-
-    def __init__(self, prep: dict, h: float):
-        n_chains, n_links = prep["n_chains"], prep["n_links"]
-        m = n_chains * n_links
-
-        def rows(x):
-            x = np.broadcast_to(np.asarray(x, dtype=np.float64), (n_chains, n_links)).reshape(1, -1)
-            return np.ascontiguousarray(np.broadcast_to(x, (3, m)))
-
-        k = prep["stiffness"]  # omega_i^2, (C, N)
-        damp = prep["damping"]  # total damping coefficient incl. air drag, (C, N)
-        length = prep["lengths_active"]
-        lever = ROD_LEVER / prep["lengths_safe"]
-        self.n_chains, self.n_links = n_chains, n_links
-        self.stacked = (3 * _SLOTS, m)
-        self.any_drag = bool(np.any(prep["drag"] > 0.0))
-        self.drag = rows(prep["drag"][:, :, 0])
-        self.k2 = rows(2.0 * k)
-        self.damp = rows(damp)
-        self.den = rows(1.0 + 0.5 * h * damp)
-        self.h = rows(h)
-        self.half_h = rows(0.5 * h)
-        self.quarter_h = rows(0.25 * h)
-        self.quarter_h2 = rows(0.25 * h * h)
-        self.two = rows(2.0)
-        self.one = rows(1.0)
-        self.floor = rows(SPRING_FLOOR)
-        self.zero = rows(0.0)
-        self.cos_lim = rows(prep["cos_lim"])
-        self.sin_lim = rows(prep["sin_lim"])
-        # transfer[i, j]: how much of link i's end acceleration (per unit length) reaches the
-        # angular acceleration of link j below it in the same chain: length_i x lever_j.
-        self.transfer = _along_chains(np.triu(np.ones((n_links, n_links)), 1)[None]
-                                      * length[:, :, None] * lever[:, None, :])
-        self.dense = self.transfer.ndim == 2
-
-        self.step = self._step_function()
-
-    def _step_function(self):
-        """The step as a closure over the constants (local names: the cheapest lookups)."""
-        # np.dot, not the @ operator: the same BLAS product with less call overhead on 2-D arrays.
-        npdot, ones33, ones66, project = np.dot, _ONES33, _ONES66, _PROJECT
-        subtract, add, multiply, maximum = np.subtract, np.add, np.multiply, np.maximum
-        any_drag, dense, drag, transfer = self.any_drag, self.dense, self.drag, self.transfer
-        stacked_pair = (6, self.n_chains * self.n_links)
-        stacked, k2, one, two, floor, zero = self.stacked, self.k2, self.one, self.two, self.floor, self.zero
-        damp, den, h, half_h, quarter_h, quarter_h2 = (
-            self.damp, self.den, self.h, self.half_h, self.quarter_h, self.quarter_h2)
-
-        def step(d, u, rate_change, rows, pair):
-            """Advance all links by one sub-step (returns new arrays; writes ``rows[2]``, ``pair``).
-
-            Parameters
-            ----------
-            d, u, rate_change : ndarray, shape (3, M)
-                Directions (unit), their rates (1/s, perpendicular to d) and the rates' change
-                per second over the last sub-step (1/s^2).
-            rows : ndarray, shape (5, 3, M)
-                ``rows[0]``: animated directions at mid-step; ``rows[1]``: lever x the felt
-                acceleration at each chain's pivot (gravity, anchor motion, drag); ``rows[2]`` is
-                overwritten with lever x the felt acceleration at each link's head; ``rows[3]``,
-                ``rows[4]``: components (z, x, y) and (y, z, x) of the damper's reference angular
-                velocity (the animated one x the relative share of damping).
-            pair : ndarray, shape (2, 3, M)
-                Scratch space.
-
-            Returns
-            -------
-            d, u, rate_change : ndarray, shape (3, M)
-            """
-            target, felt_head = rows[0], rows[2]
-            # Acceleration of each link's end relative to its head (tangential, centripetal, air
-            # drag), per unit length; summed down the chain it is what the parent links add to
-            # the felt acceleration at a link's head.
-            end = rate_change - npdot(ones33, u * u) * d
-            if any_drag:
-                end = end + drag * u
-            # (dense: np.dot inline, the common case, without a helper call on the hot path)
-            subtract(rows[1], npdot(end, transfer) if dense else _times_along_chains(end, transfer), out=felt_head)
-            proj = npdot(project, (rows * d).reshape(stacked))
-            c = proj[0:3]  # cos of the angle to the animated direction
-            # Angular acceleration: felt load on the rod + spring toward the animated direction.
-            # The spring's moment k 2 tan(a/2) has the stiffness 2k / (1 + cos a), its own gain.
-            gain = k2 / maximum(one + c, floor)
-            load = (felt_head + gain * target) - (proj[6:9] + gain * c) * d
-            # Trapezoidal rule, linearised: stiffness = spring + the pull of the chain's felt load
-            # (fixed in direction over the step) where the link hangs along it. Taken no lower
-            # than the true stiffness in any direction, the step cannot gain energy. What the
-            # parent links add turns with them, so it has no such stiffness and stays explicit.
-            stiff = gain + maximum(proj[3:6], zero)
-            rel = u - proj[9:12]  # the damper acts on the motion relative to the animation's turn
-            rate_change = (load - (damp + half_h * stiff) * rel) / (den + quarter_h2 * stiff)
-            # Turn along the great circle of the mean rate m by the Cayley form of the rotation
-            # (angle 2 atan(|x|), x = h m / 2, consistent with the trapezoid): the half-turn about
-            # d + x after the half-turn about d; the new rate is carried along by the same
-            # rotation. The scale uses |x| only (not |d + x|), so a rounding drift of |d| cannot
-            # grow.
-            u_new, x = pair[0], pair[1]
-            add(u, h * rate_change, out=u_new)
-            multiply(quarter_h, u + u_new, out=x)
-            sizes = npdot(ones66, (pair * x).reshape(stacked_pair))  # [u_new . x, |x|^2], 3 rows each
-            turn = (two / (one + sizes[3:6])) * (d + x)
-            return turn - d, u_new - sizes[0:3] * turn, rate_change
-
-        return step
+    r = s_inv @ rhs
+    gram = s_inv * (d @ np.swapaxes(d, -1, -2))
+    lam = np.linalg.solve(gram, -dot(d, r)[..., None])  # (C, N, 1)
+    return r + s_inv @ (lam * d)
 
 
-def limit_bend(d, u, target, cos_lim, sin_lim):
+def chain_energy(mech: dict, pivot_vel, felt, d, u, target):
+    """Energy of one chain (relative units of its mechanics): kinetic + load + joint springs.
+
+    For a still anchor (``pivot_vel = 0``) and a steady felt acceleration ``felt`` this is the
+    conserved energy of the undamped model. Arrays: d, u, target (n, 3); felt, pivot_vel (3,).
+    """
+    m, b = mech["inertia"], mech["load"]
+    vel = u
+    kinetic = 0.5 * float(np.sum(m * (vel @ vel.T)))
+    kinetic += float(np.asarray(pivot_vel) @ (b @ u)) + 0.5 * (1.0 + mech["tip_mass"]) * float(
+        np.asarray(pivot_vel) @ np.asarray(pivot_vel))
+    dev = d - target
+    springs = 0.5 * float(np.sum(mech["spring"] * (dev @ dev.T)))
+    return kinetic - float(b @ (d @ np.asarray(felt))) + springs
+
+
+def _impulse(inv_inertia, d, rows, speed):
+    """Rates changed by the impulses that stop the motion ``speed`` (C, P) < 0 along the
+    constraint rows ``rows`` (C, P, N, 3) (``speed_p = sum_k rows_pk . u_k``), distributed
+    through the chain's mass matrix (the least kinetic energy change that stops them; it never
+    adds kinetic energy). Inactive rows (speed >= 0) have no impulse."""
+    active = speed < 0.0
+    # Constrained response of the rates to each row's unit impulse, (C, P, N, 3).
+    resp = constrained_solve(inv_inertia[:, None], rows, np.broadcast_to(d[:, None], rows.shape))
+    w = np.einsum("cpni,cqni->cpq", rows, resp)
+    eye = np.eye(w.shape[-1])
+    act2 = active[:, :, None] & active[:, None, :]
+    w = np.where(act2, w, 0.0) + np.where(active[:, :, None], 0.0, eye)
+    # Rows of a chain may be dependent (two contacts on parallel links): a tiny ridge keeps W regular.
+    w = w + 1e-12 * np.einsum("cpp->c", np.abs(w))[:, None, None] * eye
+    mu = np.linalg.solve(w, np.where(active, -speed, 0.0)[..., None])[..., 0]  # (C, P)
+    return np.einsum("cp,cpni->cni", mu, resp)
+
+
+def _contact_impulse(inv_inertia, lengths, d, u, normals):
+    """Stop every touched link end's motion into its surface, ``n_j . sum_(k<=j) L_k d_k' >= 0``,
+    by impulses through the mass matrix (the links above and below share the shock)."""
+    n = d.shape[1]
+    lower = np.tril(np.ones((n, n)))  # row j: links k <= j
+    rows = lower[None, :, :, None] * lengths[:, None, :, None] * normals[:, :, None, :]  # (C, P=N, N, 3)
+    speed = np.einsum("cpni,cni->cp", rows, u)
+    if not (speed < 0.0).any():
+        return u
+    return u + _impulse(inv_inertia, d, rows, speed)
+
+
+def limit_bend(d, u, target, cos_lim, sin_lim, inv_inertia=None):
     """Keep each direction within its cone around the animated direction; stop outward motion.
 
-    Arrays ``(3, M)`` as in ``step``; ``cos_lim``, ``sin_lim`` (3, M): cosine and sine of each
-    link's cone half-angle.
+    Arrays ``(C, N, 3)``; ``cos_lim``, ``sin_lim`` (C, 1): cosine and sine of each chain's cone
+    half-angle. With ``inv_inertia`` (C, N, N) the outward motion is stopped by impulses through
+    the mass matrix (the chain shares the stop and gains no kinetic energy); without it, each
+    link's outward rate is removed.
     """
-    dot = _ONES33.__matmul__
-    c = dot(target * d)
+    c = dot(target, d)
     over = c < cos_lim
     if not over.any():
         return d, u
-    side = d - c * target
-    size = np.sqrt(dot(side * side))
-    fallback = any_perpendicular(target.T).T
-    side = np.where(size > _TINY, side / np.maximum(size, _TINY), fallback)
-    d = np.where(over, target * cos_lim + side * sin_lim, d)
-    u = u - dot(u * d) * d
-    away = dot(target * d) * d - target
-    away = away / np.maximum(np.sqrt(dot(away * away)), _TINY)
-    outward = np.maximum(dot(u * away), 0.0) * over
-    return d, u - outward * away
+    side = d - c[..., None] * target
+    size = np.sqrt(dot(side, side))
+    fallback = any_perpendicular(target)
+    side = np.where((size > _TINY)[..., None], side / np.maximum(size, _TINY)[..., None], fallback)
+    d = np.where(over[..., None], target * cos_lim[..., None] + side * sin_lim[..., None], d)
+    u = u - dot(u, d)[..., None] * d
+    away = dot(target, d)[..., None] * d - target
+    away = away / np.maximum(np.sqrt(dot(away, away)), _TINY)[..., None]
+    if inv_inertia is None:
+        outward = np.maximum(dot(u, away), 0.0) * over
+        return d, u - outward[..., None] * away
+    n = d.shape[1]
+    rows = -np.eye(n)[None, :, :, None] * (away * over[..., None])[:, None, :, :]  # row j: -away_j on link j
+    speed = np.einsum("cpni,cni->cp", rows, u)
+    if not (speed < 0.0).any():
+        return d, u
+    return d, u + _impulse(inv_inertia, d, rows, speed)
 
 
-class _BroadPhase:
-    """A cheap test whether any link end may be inside a collider at a sub-step's end.
-
-    Link ends come from one product with a cumulative-length matrix; spheres are tested as they
-    are, capsules by a bounding sphere (half the longest axis + radius), the ground as a plane;
-    all inflated by each link's thickness. Only when something may be inside does the exact
-    projection (``colliders.project_out``, several passes) run. The test is conservative: it
-    admits every case the projection would treat (it has no surface slack).
-    """
-
-    def __init__(self, prep: dict, coll: Colliders):
-        n_links = prep["n_links"]
-        length = prep["lengths_active"]
-        self.pivots = np.repeat(prep["pivots"].transpose(0, 2, 1), n_links, axis=-1)  # (T, 3, M)
-        self.last = self.pivots.shape[0] - 1
-        # reach[i, j] = length of link i if it is link j or above it in the same chain.
-        self.reach = _along_chains(np.triu(np.ones((n_links, n_links)))[None] * length[:, :, None])
-        thick = np.repeat(prep["link_radius"][:, 0], n_links)  # (M,)
-        centres = [np.zeros((self.last + 1, 0, 3))]
-        radii = [np.zeros(0)]
-        if coll.sphere_radii_m.size:
-            centres.append(coll.sphere_centres_m)
-            radii.append(coll.sphere_radii_m)
-        if coll.capsule_radii_m.size:
-            centres.append(0.5 * (coll.capsule_a_m + coll.capsule_b_m))
-            half = 0.5 * np.linalg.norm(coll.capsule_b_m - coll.capsule_a_m, axis=-1).max(axis=0)
-            radii.append(half + coll.capsule_radii_m)
-        self.centres = np.concatenate(centres, axis=1).transpose(0, 2, 1)[..., None]  # (T, 3, B, 1)
-        self.reach_sq = (np.concatenate(radii)[:, None] + thick) ** 2  # (B, M)
-        self.any_bounds = self.reach_sq.shape[0] > 0
-        self.plane = None if coll.ground_height_m is None else coll.ground_height_m + thick
-
-    def maybe_inside(self, d: np.ndarray, k: int, s: float) -> bool:
-        k1 = min(k + 1, self.last)
-        pivot = self.pivots[k] + s * (self.pivots[k1] - self.pivots[k])
-        tips = pivot + _times_along_chains(d, self.reach)
-        if self.plane is not None and bool(np.any(tips[2] < self.plane)):
-            return True
-        if self.any_bounds:
-            centre = self.centres[k] + s * (self.centres[k1] - self.centres[k])  # (3, B, 1)
-            rel = tips[:, None, :] - centre  # (3, B, M)
-            return bool(np.any((rel * rel).sum(axis=0) < self.reach_sq))
-        return False
-
-
-def _sub_step_inputs(rows, targets, toward, ang, lever_felt, spin_rows, s_mid):
-    """Fill ``rows`` (K, n_sub, 5, 3, M) with every sub-step's inputs for K frames (see _SLOTS).
-
-    targets, toward (K, 3, M): animated direction at each frame and the unit tangent it turns
-    along, by ``ang`` (K, 1, M) over the frame; lever_felt (K + 1, 3, M), linear within a frame;
-    spin_rows (K, 2, 3, M); s_mid (n_sub, 1, 1): the sub-steps' mid-points as fractions of a frame.
-    """
-    n_sub = s_mid.shape[0]
-    # Animated directions at mid-sub-step (slerp), by turning on in steps of a / n_sub
-    # (angle-sum recurrence: two sines and cosines per chunk instead of two per sub-step).
-    cos_j, sin_j = np.cos(s_mid[0] * ang), np.sin(s_mid[0] * ang)  # (K, 1, M)
-    cos_inc, sin_inc = np.cos(ang / n_sub), np.sin(ang / n_sub)
-    for j in range(n_sub):
-        if j:
-            cos_j, sin_j = cos_j * cos_inc - sin_j * sin_inc, sin_j * cos_inc + cos_j * sin_inc
-        np.multiply(targets, cos_j, out=rows[:, j, 0])
-        rows[:, j, 0] += toward * sin_j
-    g0, g1 = lever_felt[:-1, None], lever_felt[1:, None]
-    np.multiply(s_mid, g1 - g0, out=rows[:, :, 1])
-    rows[:, :, 1] += g0
-    rows[:, :, 3:5] = spin_rows[:, None]
-    return rows
-
-
-def _collide_rows(prep, coll, k, s, d, u):
-    """``_collide`` at fraction ``s`` of frame k for (3, M) rows; returns d, u (3, M) and touched."""
-    n_chains, n_links = prep["n_chains"], prep["n_links"]
-    pivot = prep["pivots"][k] + s * (prep["pivots"][k + 1] - prep["pivots"][k])
-    # transpose, not moveaxis: same views, without moveaxis' per-call axis checks
-    # (they cost more than the collision itself at this size).
-    d3 = d.reshape(3, n_chains, n_links).transpose(1, 2, 0)
-    u3 = u.reshape(3, n_chains, n_links).transpose(1, 2, 0)
-    d3, u3, touched = _collide(prep, coll, pivot, k, s, d3, u3)
-    return d3.transpose(2, 0, 1).reshape(d.shape), u3.transpose(2, 0, 1).reshape(u.shape), touched
-
-
-def _collide(prep, coll, pivot, k, s, d, u):
+def _collide(prep, coll, pivot, k, s, d, u, with_normals=False):
     def at(arr):
         if arr.shape[1] == 0:
             return np.zeros((0, 3))
@@ -446,5 +340,5 @@ def _collide(prep, coll, pivot, k, s, d, u):
         pivot, d, u, prep["lengths_active"], prep["link_radius"],
         at(coll.sphere_centres_m), coll.sphere_radii_m,
         at(coll.capsule_a_m), at(coll.capsule_b_m), coll.capsule_radii_m,
-        coll.ground_height_m, prep["n_links"] + 2,
+        coll.ground_height_m, prep["n_links"] + 2, with_normals,
     )
