@@ -68,7 +68,7 @@ class OverlapAssistChain(bpy.types.PropertyGroup):
                               description="Largest angle a link may swing away from its animated direction")
     collision_radius: FloatProperty(name="Collision radius", default=0.0, min=0.0, max=1.0, subtype='DISTANCE',
                                     update=_changed, description="Thickness of the chain against colliders (metres)")
-    substeps: IntProperty(name="Sub-steps", default=4, min=1, max=16, update=_changed,
+    substeps: IntProperty(name="Sub-steps", default=ChainSettings().substeps, min=1, max=16, update=_changed,
                           description="Solver steps per frame (stiff settings add more automatically)")
 
     def bone_names(self):

@@ -5,6 +5,7 @@ kernel are in ``chain_solver``.
 """
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -14,13 +15,15 @@ from .colliders import any_perpendicular, dot, unit_or
 from .errors import InputError
 
 OMEGA_STEP_MAX = 0.7
-"""Automatic sub-stepping keeps h x (highest mode frequency of the chain at its nominal load)
-below this, for accuracy: the trapezoid's frequency error is (h w)^2 / 12 < 4 %."""
+"""Automatic sub-stepping keeps h x (lowest mode frequency of the chain hanging at its nominal
+load) below this, for accuracy of the motion one sees: the trapezoid's frequency error is
+(h w)^2 / 12 < 4 %. The higher modes of a chain of short links can be far faster; the step is
+stable for them (implicit) and the Rayleigh damping calms them more than the lowest mode."""
 
 DAMP_STEP_MAX = 4.0
-"""Automatic sub-stepping keeps h x (largest modal damping coefficient) below this: the
-trapezoidal rule turns a very stiff damper into a sign-alternating decay (factor
--(hc-2)/(hc+2)); 4 -> -1/3."""
+"""Automatic sub-stepping keeps h x (the lowest mode's damping coefficient 2 zeta w_1, plus air
+drag) below this: the trapezoidal rule turns a very stiff damper into a sign-alternating decay
+(factor -(hc-2)/(hc+2)); 4 -> -1/3."""
 
 _TURN_TINY = 1e-12
 """Below this sine a frame's turn of a link counts as none (or, near 180 degrees, as a flip)."""
@@ -28,6 +31,10 @@ _TURN_TINY = 1e-12
 FELT_NONE_MPS2 = 1e-6
 """Felt accelerations below this count as none in the pre-roll: finite differences of a ballistic
 path leave ~1e-10 m/s^2 of rounding, which must not pick a hanging direction for a free link."""
+
+CALIBRATE_ZETA_MIN = 0.01
+"""Below this damping ratio a chain is not calibrated to the second-order step response (it
+would take ~1 / zeta periods to settle; the lowest mode keeps the ratio as given)."""
 
 SETTLE_ITERATIONS = 200
 """Most Newton iterations of the pre-roll's static equilibrium (converges in ~5-30)."""
@@ -82,19 +89,26 @@ def chain_mechanics(lengths_m, settings: ChainSettings, g_size_mps2: float) -> d
         return np.linalg.eigvalsh(inv_chol @ stiff @ inv_chol.T)
 
     omega_target = 2.0 * math.pi * float(settings.frequency_hz)
+    zeta = float(settings.damping_ratio)
     scale = omega_target**2 / max(float(modes(spring_unit)[0]), 1e-300) if omega_target > 0.0 else 0.0
+    if n > 1 and omega_target > 0.0 and zeta >= CALIBRATE_ZETA_MIN:
+        # The anchor-to-tip direction of a chain is its lowest mode plus a little of the higher
+        # ones: calibrate so its step response has the bounce and settling time of the standard
+        # second-order system with (frequency, damping ratio) (response.py).
+        zeta, time_factor = _calibrate_cached(inertia.tobytes(), spring_unit.tobytes(), load.tobytes(),
+                                              lengths.tobytes(), n, zeta)
+        scale *= time_factor**2
     joint_k = scale * unit_k
     spring = scale * spring_unit
     gravity_stiffness = load * float(settings.gravity_scale) * g_size_mps2
     hanging = spring + np.diag(gravity_stiffness)
     lam = modes(hanging)
     omega_hanging = math.sqrt(max(float(lam[0]), 0.0))
-    zeta = float(settings.damping_ratio)
     if omega_hanging > 0.0 and zeta > 0.0:
         # Rayleigh damping C = alpha M + beta K, split evenly at the lowest mode: that mode gets
         # exactly zeta, mode r gets zeta (w1 / wr + wr / w1) / 2 >= zeta (higher modes calmer).
         damping = zeta * omega_hanging * inertia + (zeta / omega_hanging) * hanging
-        damp_max = float(np.max(2.0 * zeta * 0.5 * (omega_hanging + lam / omega_hanging)))
+        damp_max = float(2.0 * zeta * omega_hanging)  # the lowest mode's (see OMEGA_STEP_MAX)
     else:
         damping = np.zeros((n, n))
         damp_max = 0.0
@@ -102,8 +116,80 @@ def chain_mechanics(lengths_m, settings: ChainSettings, g_size_mps2: float) -> d
         "mass": mass, "tip_mass": tip_mass, "inertia": inertia, "load": load, "joint_k": joint_k,
         "spring": spring, "gravity_stiffness": gravity_stiffness, "damping": damping,
         "omega_spring": omega_target, "omega_hanging": omega_hanging,
-        "omega_max": math.sqrt(max(float(lam[-1]), 0.0)), "damp_max": damp_max + float(settings.air_drag),
+        "omega_max": omega_hanging, "omega_top": math.sqrt(max(float(lam[-1]), 0.0)),
+        "damp_max": damp_max + float(settings.air_drag),
     }
+
+
+def chain_step_response(inertia, spring, load, lengths, zeta, tau, modes=None):
+    """Anchor-to-tip direction's response to a step of the anchor's acceleration (gravity off,
+    small angles), normalised to 1 at rest: modal superposition with Rayleigh damping split
+    evenly at the lowest mode (as in chain_mechanics). ``tau`` in units of 1 / omega_1."""
+    lam, vec = _modes_of(inertia, spring) if modes is None else modes
+    w = np.sqrt(np.maximum(lam, 1e-300))
+    w1 = w[0]
+    zetas = 0.5 * zeta * (w1 / w + w / w1)
+    tip = lengths / lengths.sum()
+    weights = (tip @ vec) * (vec.T @ load) / lam
+    weights = weights / weights.sum()
+    out = np.zeros_like(tau)
+    for r in range(lam.size):
+        out += weights[r] * (1.0 - _step_error(tau * (w[r] / w1), float(zetas[r])))
+    return out
+
+
+def _modes_of(inertia, stiff):
+    chol = np.linalg.cholesky(inertia)
+    inv_chol = np.linalg.inv(chol)
+    lam, y = np.linalg.eigh(inv_chol @ stiff @ inv_chol.T)
+    return lam, inv_chol.T @ y  # M-orthonormal mode shapes
+
+
+def _step_error(tau, z):
+    from .response import step_error
+    return step_error(tau, z)
+
+
+@functools.lru_cache(maxsize=256)
+def _calibrate_cached(inertia, spring_unit, load, lengths, n, zeta_wanted):
+    """_calibrate on arrays given as bytes (hashable): a preview re-solve after an edit recomputes
+    only the edited chain's calibration."""
+    def arr(b, shape):
+        return np.frombuffer(b, dtype=np.float64).reshape(shape)
+    return _calibrate(arr(inertia, (n, n)), arr(spring_unit, (n, n)), arr(load, (n,)), arr(lengths, (n,)), zeta_wanted)
+
+
+def _calibrate(inertia, spring_unit, load, lengths, zeta_wanted, iterations: int = 30):
+    """(damping ratio of the lowest mode, time factor) giving the chain's anchor-to-tip step
+    response the overshoot and 2 % settling time of the standard second-order system."""
+    from .response import SETTLE_BAND, bounce_of, settle_tau
+
+    want_bounce = bounce_of(min(zeta_wanted, 1.0)) if zeta_wanted < 1.0 else 0.0
+    tau = np.linspace(0.0, (math.log(4.0 / SETTLE_BAND) + 4.0) / min(zeta_wanted, 1.0) * 2.0, 4000)
+
+    modes = _modes_of(inertia, spring_unit)
+    # The overshoot is the first peak, near tau = pi / sqrt(1 - zeta^2): a short fine grid.
+    tau_peak = np.linspace(0.0, 2.5 * math.pi / math.sqrt(max(1.0 - min(zeta_wanted, 0.99) ** 2, 1e-4)), 600)
+
+    def bounce(z):
+        y = chain_step_response(inertia, spring_unit, load, lengths, z, tau_peak, modes)
+        return float(y.max()) - 1.0
+
+    z = zeta_wanted
+    if want_bounce > 1e-4:
+        lo, hi = 0.2 * zeta_wanted, min(1.5 * zeta_wanted + 0.05, 3.0)
+        if (bounce(lo) - want_bounce) * (bounce(hi) - want_bounce) < 0.0:
+            for _ in range(iterations):
+                mid = 0.5 * (lo + hi)
+                if bounce(mid) > want_bounce:
+                    lo = mid
+                else:
+                    hi = mid
+            z = 0.5 * (lo + hi)
+    y = chain_step_response(inertia, spring_unit, load, lengths, z, tau, modes)
+    outside = np.flatnonzero(np.abs(y - 1.0) >= SETTLE_BAND)
+    got = float(tau[outside[-1] + 1]) if outside.size and outside[-1] + 1 < tau.size else float(tau[-1])
+    return z, got / settle_tau(zeta_wanted)
 
 
 def _joint_matrix(k: np.ndarray) -> np.ndarray:

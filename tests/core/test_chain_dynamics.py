@@ -340,3 +340,33 @@ def test_equivalence_principle_anchor_accelerating_up():
         up = angles(simulate_planar(lengths, q0, [0.0, 0.0], fps, seconds, pivot=lifted))[:, 0] * np.sign(shape[0])
         ratio = measured_omega(still, fps) / measured_omega(up, fps)
         assert abs(ratio / math.sqrt(G0 / (G0 + accel)) - 1.0) / 0.01 < 1.0, (r, ratio)
+
+
+# ---------------------------------------------------------------------------------------------
+# Animator controls describe the whole chain
+
+
+@pytest.mark.parametrize("n_links", [1, 4, 8])
+@pytest.mark.parametrize("bounce, settle_frames, fps", [(0.1, 24, 24), (0.3, 36, 30), (0.6, 60, 24)])
+def test_bounce_and_settle_round_trip_for_the_whole_chain(n_links, bounce, settle_frames, fps):
+    # Bounce / Settle -> (frequency, damping ratio) (response.response_from_bounce_settle, Ogata 2010
+    # Sec. 5-3) -> the chain's joint springs and damping -> the body starts pushing steadily (anchor
+    # acceleration steps from 0 at frame k0, gravity off): the direction from the anchor to the tip
+    # overshoots by `bounce` and settles into the 2 % band after `settle_frames`, within 10 %.
+    from overlap_assist.core import response
+
+    freq, zeta = response.response_from_bounce_settle(bounce, settle_frames, fps)
+    n, k0, accel = 4 * settle_frames + 40, 10, 0.05
+    t = np.arange(n) / fps
+    pivot = np.zeros((n, 3))
+    pivot[:, 0] = 0.5 * accel * np.maximum(t - k0 / fps, 0.0) ** 2
+    chain = ChainInput(pivot, np.tile([0.0, 0.0, -1.0], (n, n_links, 1)), [0.4 / n_links] * n_links)
+    s = ChainSettings(frequency_hz=freq, damping_ratio=zeta, gravity_scale=0.0, tip_looseness=0.3)
+    motion = simulate_chains([chain], [s], GRAVITY, 1.0 / fps)
+    rel = motion.tip_positions_m[0][:, -1] - pivot
+    angle = np.arctan2(-rel[:, 0], -rel[:, 2])
+    final = angle[-1]
+    sim_bounce = angle.max() / final - 1.0
+    sim_settle = int(np.flatnonzero(np.abs(angle / final - 1.0) >= 0.02)[-1]) + 1 - k0
+    assert abs(sim_bounce / bounce - 1.0) / 0.10 < 1.0, sim_bounce
+    assert abs(sim_settle / settle_frames - 1.0) / 0.10 < 1.0, sim_settle
