@@ -32,6 +32,11 @@ FELT_NONE_MPS2 = 1e-6
 """Felt accelerations below this count as none in the pre-roll: finite differences of a ballistic
 path leave ~1e-10 m/s^2 of rounding, which must not pick a hanging direction for a free link."""
 
+LOOSE_SHAPE_FLOOR = 0.05
+"""Least joint stiffness (per unit of what the joint carries) relative to the root's, at tip
+looseness 1: a joint without spring would give the springs a zero mode, and the lowest mode
+could not be set to the requested frequency."""
+
 CALIBRATE_ZETA_MIN = 0.01
 """Below this damping ratio a chain is not calibrated to the second-order step response (it
 would take ~1 / zeta periods to settle; the lowest mode keeps the ratio as given)."""
@@ -79,7 +84,7 @@ def chain_mechanics(lengths_m, settings: ChainSettings, g_size_mps2: float) -> d
     load = lengths * share
     # What joint j carries: the inertia of links j..n turning rigidly about it (straight chain).
     carried = np.cumsum(np.cumsum(inertia[::-1, ::-1], axis=0), axis=1)[::-1, ::-1].diagonal().copy()
-    shape = (1.0 - float(settings.tip_looseness) * pos) ** 2
+    shape = np.maximum((1.0 - float(settings.tip_looseness) * pos) ** 2, LOOSE_SHAPE_FLOOR)
     unit_k = shape * carried
     spring_unit = _joint_matrix(unit_k)
     chol = np.linalg.cholesky(inertia)

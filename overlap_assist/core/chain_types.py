@@ -39,7 +39,7 @@ class ChainSettings:
     chain's lowest mode (springs together with gravity's pull when hanging straight down)."""
     tip_looseness: float = 0.3
     """0..1: joint stiffness (per unit of what the joint carries) falls along the chain to
-    (1 - tip_looseness)^2 x at the tip joint."""
+    (1 - tip_looseness)^2 x at the tip joint (at least 0.05 x)."""
     gravity_scale: float = 1.0
     """Multiplier of the gravity vector (Gravity x g)."""
     body_response: float = 1.0
