@@ -25,6 +25,10 @@ DAMP_STEP_MAX = 4.0
 drag) below this: the trapezoidal rule turns a very stiff damper into a sign-alternating decay
 (factor -(hc-2)/(hc+2)); 4 -> -1/3."""
 
+HIGH_MODE_DAMP_STEP_MAX = 8.0
+"""Cap of h x (the highest mode's damping coefficient): the trapezoid then decays that mode by
+a factor 0.6 per sub-step (-(hc - 2) / (hc + 2)) instead of freezing it near -1."""
+
 _TURN_TINY = 1e-12
 """Below this sine a frame's turn of a link counts as none (or, near 180 degrees, as a flip)."""
 
@@ -122,6 +126,7 @@ def chain_mechanics(lengths_m, settings: ChainSettings, g_size_mps2: float) -> d
         "spring": spring, "gravity_stiffness": gravity_stiffness, "damping": damping,
         "omega_spring": omega_target, "omega_hanging": omega_hanging,
         "omega_max": omega_hanging, "omega_top": math.sqrt(max(float(lam[-1]), 0.0)),
+        "hanging": hanging, "zeta_mode": zeta,
         "damp_max": damp_max + float(settings.air_drag),
     }
 
