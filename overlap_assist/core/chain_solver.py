@@ -257,6 +257,10 @@ def simulate_chains(
             uu = npdot(u * u, ones)
             uu_max = TENSION_MARGIN * float(np.max(uu))
             tension = (inertia @ uu)[..., 0]  # (C, N)
+            # ... and so is the joint springs' curvature on the unit spheres, -(d_j . dV/dd_j),
+            # which a bent chain can make positive (a weakly damped stiff chain gained 52 %
+            # energy at 30 fps while it was left explicit).
+            tension = tension + np.maximum(-np.einsum("cni,cni->cn", spring @ (d - targets[k]), d), 0.0)
             if float(np.max(np.max(tension, axis=1) * inv_min_inertia)) * h * h > TENSION_IMPLICIT_MIN:
                 sk = step_inverse(h, load * bound[k][:, None] + TENSION_MARGIN * tension)
             else:
@@ -279,7 +283,8 @@ def simulate_chains(
                         if pieces >= 4 * MAX_SPLIT:  # guard: finish with the shortest pieces
                             frac = max(frac, 1.0 / MAX_SPLIT)
                         frac = min(frac, 1.0 - done)
-                        tension = (inertia @ uu)[..., 0]
+                        tension = (inertia @ uu)[..., 0] + np.maximum(
+                            -np.einsum("cni,cni->cn", spring @ (d - targets[k]), d), 0.0)
                         sp = step_inverse(h * frac, load * bound[k][:, None] + TENSION_MARGIN * tension)
                         d, u, a_last = dynamics(d, u, a_last, drive_k[j], sp, h * frac, uu)
                         done += frac
