@@ -51,11 +51,12 @@ class OverlapAssistChain(bpy.types.PropertyGroup):
     bounce: FloatProperty(name="Bounce (%)", default=25.0, min=0.0, max=90.0, subtype='PERCENTAGE', update=_changed,
                           description="How far the chain swings past its rest after a stop")
     frequency_hz: FloatProperty(name="Frequency (Hz)", default=2.0, min=0.0, max=10.0, update=_changed,
-                                description="Natural frequency of the spring toward the animated pose; 0 = no spring")
+                                description="Natural frequency of the whole chain's springs toward the animated pose "
+                                            "(its lowest mode, anchor to tip); 0 = no springs")
     damping_ratio: FloatProperty(name="Damping ratio", default=0.4, min=0.0, max=2.0, update=_changed,
                                  description="1 = no overshoot; lower swings more")
     tip_looseness: FloatProperty(name="Tip looseness", default=0.3, min=0.0, max=1.0, subtype='FACTOR',
-                                 update=_changed, description="How much softer the spring gets toward the tip")
+                                 update=_changed, description="How much softer the joint springs get toward the tip")
     gravity_scale: FloatProperty(name="Gravity (× g)", default=1.0, min=0.0, max=3.0, update=_changed,
                                  description="Multiplier of gravity on this chain")
     body_response: FloatProperty(name="Body response (×)", default=1.0, min=0.0, max=3.0, update=_changed,
@@ -68,7 +69,14 @@ class OverlapAssistChain(bpy.types.PropertyGroup):
                               description="Largest angle a link may swing away from its animated direction")
     collision_radius: FloatProperty(name="Collision radius", default=0.0, min=0.0, max=1.0, subtype='DISTANCE',
                                     update=_changed, description="Thickness of the chain against colliders (meters)")
-    substeps: IntProperty(name="Sub-steps", default=4, min=1, max=16, update=_changed,
+    thickness_taper: FloatProperty(name="Thickness taper", default=0.0, min=0.0, max=0.95, subtype='FACTOR',
+                                   update=_changed,
+                                   description="How much thinner (lighter per length) the chain gets from root to "
+                                               "tip: 0 uniform, 0.8 a tapering tail")
+    tip_mass: FloatProperty(name="Tip mass (× chain)", default=0.0, min=0.0, max=20.0, update=_changed,
+                            description="A weight hanging at the chain's end (a bag on a strap), as a multiple "
+                                        "of the chain's own mass; 0 = none")
+    substeps: IntProperty(name="Sub-steps", default=ChainSettings().substeps, min=1, max=16, update=_changed,
                           description="Solver steps per frame (stiff settings add more automatically)")
 
     def bone_names(self):
@@ -88,7 +96,8 @@ class OverlapAssistChain(bpy.types.PropertyGroup):
         return ChainSettings(frequency_hz=f_hz, damping_ratio=zeta, tip_looseness=self.tip_looseness,
                              gravity_scale=self.gravity_scale, body_response=self.body_response,
                              air_drag=self.air_drag, bend_limit_rad=min(self.bend_limit, math.pi),  # float32 pi > pi
-                             collision_radius_m=self.collision_radius * scale_length, substeps=self.substeps)
+                             collision_radius_m=self.collision_radius * scale_length, substeps=self.substeps,
+                             thickness_taper=self.thickness_taper, tip_mass_ratio=self.tip_mass)
 
     def apply_physical(self, frequency_hz, damping_ratio, fps):
         """Set both control sets from physical values (keeps the chosen mode)."""
@@ -104,7 +113,8 @@ class OverlapAssistChain(bpy.types.PropertyGroup):
                 "tip_looseness": self.tip_looseness, "gravity_scale": self.gravity_scale,
                 "body_response": self.body_response, "air_drag": self.air_drag,
                 "bend_limit_deg": round(math.degrees(self.bend_limit), 3),
-                "collision_radius_m": self.collision_radius, "substeps": self.substeps}
+                "collision_radius_m": self.collision_radius, "substeps": self.substeps,
+                "thickness_taper": self.thickness_taper, "tip_mass_ratio": self.tip_mass}
 
     def apply_preset(self, doc, fps):
         s = doc["settings"]
@@ -113,7 +123,8 @@ class OverlapAssistChain(bpy.types.PropertyGroup):
             self.response_mode = "PHYSICAL"  # a free pendulum has no lag/settle in frames
         for key, attr in (("tip_looseness", "tip_looseness"), ("gravity_scale", "gravity_scale"),
                           ("body_response", "body_response"), ("air_drag", "air_drag"),
-                          ("collision_radius_m", "collision_radius"), ("substeps", "substeps")):
+                          ("collision_radius_m", "collision_radius"), ("substeps", "substeps"),
+                          ("thickness_taper", "thickness_taper"), ("tip_mass_ratio", "tip_mass")):
             if key in s:
                 setattr(self, attr, s[key])
         if "bend_limit_deg" in s:

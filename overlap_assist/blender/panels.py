@@ -136,8 +136,8 @@ def draw_chain_settings(layout, chain, fps):
     else:
         col.prop(chain, "frequency_hz")
         col.prop(chain, "damping_ratio")
-    for prop in ("tip_looseness", "gravity_scale", "body_response", "air_drag", "bend_limit",
-                 "collision_radius", "substeps"):
+    for prop in ("tip_looseness", "thickness_taper", "tip_mass", "gravity_scale", "body_response", "air_drag",
+                 "bend_limit", "collision_radius", "substeps"):
         col.prop(chain, prop)
 
 

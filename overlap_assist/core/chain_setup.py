@@ -5,6 +5,7 @@ kernel are in ``chain_solver``.
 """
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -13,20 +14,20 @@ from .chain_types import MAX_SUBSTEPS, ChainInput, ChainMotion, ChainSettings, C
 from .colliders import any_perpendicular, dot, unit_or
 from .errors import InputError
 
-ROD_LEVER = 1.5
-"""Angular acceleration per (felt acceleration / length) of a uniform rod about its end: 3/2."""
 OMEGA_STEP_MAX = 0.7
-"""Automatic sub-stepping keeps h x (link frequency incl. gravity) below this, for accuracy:
-the trapezoid's frequency error is (h w)^2 / 12 < 4 %."""
+"""Automatic sub-stepping keeps h x (lowest mode frequency of the chain hanging at its nominal
+load) below this, for accuracy of the motion one sees: the trapezoid's frequency error is
+(h w)^2 / 12 < 4 %. The higher modes of a chain of short links can be far faster; the step is
+stable for them (implicit) and the Rayleigh damping calms them more than the lowest mode."""
 
 DAMP_STEP_MAX = 4.0
-"""Automatic sub-stepping keeps h x damping coefficient below this: the trapezoidal rule
-turns a very stiff damper into a sign-alternating decay (factor -(hc-2)/(hc+2)); 4 -> -1/3."""
-SPRING_FLOOR = 0.5
-"""Floor of 1 + cos(angle to target) in the spring: the moment k 2 tan(angle/2) (= k angle
-within 3 % up to 35 degrees) stops growing past 120 degrees and falls to 0 at 180, so the
-spring's stiffness never exceeds 4 k (covered by automatic sub-stepping)."""
+"""Automatic sub-stepping keeps h x (the lowest mode's damping coefficient 2 zeta w_1, plus air
+drag) below this: the trapezoidal rule turns a very stiff damper into a sign-alternating decay
+(factor -(hc-2)/(hc+2)); 4 -> -1/3."""
 
+HIGH_MODE_DAMP_STEP_MAX = 8.0
+"""Cap of h x (the highest mode's damping coefficient): the trapezoid then decays that mode by
+a factor 0.6 per sub-step (-(hc - 2) / (hc + 2)) instead of freezing it near -1."""
 
 _TURN_TINY = 1e-12
 """Below this sine a frame's turn of a link counts as none (or, near 180 degrees, as a flip)."""
@@ -34,6 +35,182 @@ _TURN_TINY = 1e-12
 FELT_NONE_MPS2 = 1e-6
 """Felt accelerations below this count as none in the pre-roll: finite differences of a ballistic
 path leave ~1e-10 m/s^2 of rounding, which must not pick a hanging direction for a free link."""
+
+LOOSE_SHAPE_FLOOR = 0.05
+"""Least joint stiffness (per unit of what the joint carries) relative to the root's, at tip
+looseness 1: a joint without spring would give the springs a zero mode, and the lowest mode
+could not be set to the requested frequency."""
+
+CALIBRATE_ZETA_MIN = 0.01
+"""Below this damping ratio a chain is not calibrated to the second-order step response (it
+would take ~1 / zeta periods to settle; the lowest mode keeps the ratio as given)."""
+
+SETTLE_ITERATIONS = 200
+"""Most Newton iterations of the pre-roll's static equilibrium (converges in ~5-30)."""
+
+SETTLE_STEP_MAX = 0.5
+"""Largest turn (rad, tangent length) of a link per pre-roll iteration: keeps Newton on the
+equilibrium reached from the animated pose."""
+
+
+def chain_mechanics(lengths_m, settings: ChainSettings, g_size_mps2: float) -> dict:
+    """Linearised mechanics of one chain (see ``chain_solver``'s docstring for the model).
+
+    Masses are relative (the chain's links sum to 1): only ratios matter, since the springs
+    are derived from the requested frequency.
+
+    Returns
+    -------
+    dict with
+        ``mass`` (n,) link masses; ``tip_mass``; ``inertia`` (n, n) the mass matrix M of the
+        link directions (``T = 1/2 sum M_jk d_j' . d_k'`` for a still anchor); ``load`` (n,)
+        ``b_j``: a uniform felt acceleration f gives the generalised force ``b_j f`` (and the
+        anchor's velocity couples to ``d_j'`` through ``b_j``); ``joint_k`` (n,) joint
+        stiffnesses; ``spring`` (n, n) the tridiagonal stiffness K_s of the joint springs;
+        ``gravity_stiffness`` (n,) ``b_j gravity_scale |g|`` (hanging straight down);
+        ``damping`` (n, n) the Rayleigh damping C of the motion relative to the animation;
+        ``omega_spring``, ``omega_hanging`` lowest mode frequencies (rad/s) of (K_s, M) and
+        (K_s + K_g, M); ``omega_max``, ``damp_max``: largest mode frequency and modal damping
+        coefficient (for automatic sub-steps).
+    """
+    lengths = np.asarray(lengths_m, dtype=np.float64)
+    n = lengths.size
+    pos = np.arange(n) / (n - 1) if n > 1 else np.zeros(1)
+    thick = 1.0 - float(settings.thickness_taper) * pos
+    mass = lengths * thick * thick
+    mass = mass / mass.sum()
+    tip_mass = float(settings.tip_mass_ratio)
+    below = np.concatenate([np.cumsum(mass[::-1])[::-1][1:], [0.0]]) + tip_mass  # S_{j+1}
+    share = 0.5 * mass + below  # first moment of link j and below about link j's head, per L_j
+    # M_jk (j < k) = L_j L_k (m_k / 2 + S_{k+1}); M_jj = L_j^2 (m_j / 3 + S_{j+1}).
+    upper = np.triu(np.ones((n, n)), 1) * (lengths[:, None] * lengths[None, :] * share[None, :])
+    inertia = upper + upper.T + np.diag(lengths**2 * (mass / 3.0 + below))
+    load = lengths * share
+    # What joint j carries: the inertia of links j..n turning rigidly about it (straight chain).
+    carried = np.cumsum(np.cumsum(inertia[::-1, ::-1], axis=0), axis=1)[::-1, ::-1].diagonal().copy()
+    shape = np.maximum((1.0 - float(settings.tip_looseness) * pos) ** 2, LOOSE_SHAPE_FLOOR)
+    unit_k = shape * carried
+    spring_unit = _joint_matrix(unit_k)
+    chol = np.linalg.cholesky(inertia)
+    inv_chol = np.linalg.inv(chol)
+
+    def modes(stiff):
+        return np.linalg.eigvalsh(inv_chol @ stiff @ inv_chol.T)
+
+    omega_target = 2.0 * math.pi * float(settings.frequency_hz)
+    zeta = float(settings.damping_ratio)
+    scale = omega_target**2 / max(float(modes(spring_unit)[0]), 1e-300) if omega_target > 0.0 else 0.0
+    if n > 1 and omega_target > 0.0 and zeta >= CALIBRATE_ZETA_MIN:
+        # The anchor-to-tip direction of a chain is its lowest mode plus a little of the higher
+        # ones: calibrate so its step response has the bounce and settling time of the standard
+        # second-order system with (frequency, damping ratio) (response.py).
+        zeta, time_factor = _calibrate_cached(inertia.tobytes(), spring_unit.tobytes(), load.tobytes(),
+                                              lengths.tobytes(), n, zeta)
+        scale *= time_factor**2
+    joint_k = scale * unit_k
+    spring = scale * spring_unit
+    gravity_stiffness = load * float(settings.gravity_scale) * g_size_mps2
+    hanging = spring + np.diag(gravity_stiffness)
+    lam = modes(hanging)
+    omega_hanging = math.sqrt(max(float(lam[0]), 0.0))
+    if omega_hanging > 0.0 and zeta > 0.0:
+        # Rayleigh damping C = alpha M + beta K, split evenly at the lowest mode: that mode gets
+        # exactly zeta, mode r gets zeta (w1 / wr + wr / w1) / 2 >= zeta (higher modes calmer).
+        damping = zeta * omega_hanging * inertia + (zeta / omega_hanging) * hanging
+        damp_max = float(2.0 * zeta * omega_hanging)  # the lowest mode's (see OMEGA_STEP_MAX)
+    else:
+        damping = np.zeros((n, n))
+        damp_max = 0.0
+    return {
+        "mass": mass, "tip_mass": tip_mass, "inertia": inertia, "load": load, "joint_k": joint_k,
+        "spring": spring, "gravity_stiffness": gravity_stiffness, "damping": damping,
+        "omega_spring": omega_target, "omega_hanging": omega_hanging,
+        "omega_max": omega_hanging, "omega_top": math.sqrt(max(float(lam[-1]), 0.0)),
+        "hanging": hanging, "zeta_mode": zeta,
+        "damp_max": damp_max + float(settings.air_drag),
+    }
+
+
+def chain_step_response(inertia, spring, load, lengths, zeta, tau, modes=None):
+    """Anchor-to-tip direction's response to a step of the anchor's acceleration (gravity off,
+    small angles), normalised to 1 at rest: modal superposition with Rayleigh damping split
+    evenly at the lowest mode (as in chain_mechanics). ``tau`` in units of 1 / omega_1."""
+    lam, vec = _modes_of(inertia, spring) if modes is None else modes
+    w = np.sqrt(np.maximum(lam, 1e-300))
+    w1 = w[0]
+    zetas = 0.5 * zeta * (w1 / w + w / w1)
+    tip = lengths / lengths.sum()
+    weights = (tip @ vec) * (vec.T @ load) / lam
+    weights = weights / weights.sum()
+    out = np.zeros_like(tau)
+    for r in range(lam.size):
+        out += weights[r] * (1.0 - _step_error(tau * (w[r] / w1), float(zetas[r])))
+    return out
+
+
+def _modes_of(inertia, stiff):
+    chol = np.linalg.cholesky(inertia)
+    inv_chol = np.linalg.inv(chol)
+    lam, y = np.linalg.eigh(inv_chol @ stiff @ inv_chol.T)
+    return lam, inv_chol.T @ y  # M-orthonormal mode shapes
+
+
+def _step_error(tau, z):
+    from .response import step_error
+    return step_error(tau, z)
+
+
+@functools.lru_cache(maxsize=256)
+def _calibrate_cached(inertia, spring_unit, load, lengths, n, zeta_wanted):
+    """_calibrate on arrays given as bytes (hashable): a preview re-solve after an edit recomputes
+    only the edited chain's calibration."""
+    def arr(b, shape):
+        return np.frombuffer(b, dtype=np.float64).reshape(shape)
+    return _calibrate(arr(inertia, (n, n)), arr(spring_unit, (n, n)), arr(load, (n,)), arr(lengths, (n,)), zeta_wanted)
+
+
+def _calibrate(inertia, spring_unit, load, lengths, zeta_wanted, iterations: int = 30):
+    """(damping ratio of the lowest mode, time factor) giving the chain's anchor-to-tip step
+    response the overshoot and 2 % settling time of the standard second-order system."""
+    from .response import SETTLE_BAND, bounce_of, settle_tau
+
+    want_bounce = bounce_of(min(zeta_wanted, 1.0)) if zeta_wanted < 1.0 else 0.0
+    tau = np.linspace(0.0, (math.log(4.0 / SETTLE_BAND) + 4.0) / min(zeta_wanted, 1.0) * 2.0, 4000)
+
+    modes = _modes_of(inertia, spring_unit)
+    # The overshoot is the first peak, near tau = pi / sqrt(1 - zeta^2): a short fine grid.
+    tau_peak = np.linspace(0.0, 2.5 * math.pi / math.sqrt(max(1.0 - min(zeta_wanted, 0.99) ** 2, 1e-4)), 600)
+
+    def bounce(z):
+        y = chain_step_response(inertia, spring_unit, load, lengths, z, tau_peak, modes)
+        return float(y.max()) - 1.0
+
+    z = zeta_wanted
+    if want_bounce > 1e-4:
+        lo, hi = 0.2 * zeta_wanted, min(1.5 * zeta_wanted + 0.05, 3.0)
+        if (bounce(lo) - want_bounce) * (bounce(hi) - want_bounce) < 0.0:
+            for _ in range(iterations):
+                mid = 0.5 * (lo + hi)
+                if bounce(mid) > want_bounce:
+                    lo = mid
+                else:
+                    hi = mid
+            z = 0.5 * (lo + hi)
+    y = chain_step_response(inertia, spring_unit, load, lengths, z, tau, modes)
+    outside = np.flatnonzero(np.abs(y - 1.0) >= SETTLE_BAND)
+    got = float(tau[outside[-1] + 1]) if outside.size and outside[-1] + 1 < tau.size else float(tau[-1])
+    return z, got / settle_tau(zeta_wanted)
+
+
+def _joint_matrix(k: np.ndarray) -> np.ndarray:
+    """Stiffness of joint springs k_j between link j and its parent (the anchor for j = 0) on the
+    deviations ``d - t``: ``V = sum_j k_j / 2 |dev_j - dev_(j-1)|^2``, tridiagonal."""
+    n = k.size
+    k_next = np.concatenate([k[1:], [0.0]])
+    out = np.diag(k + k_next)
+    if n > 1:
+        out -= np.diag(k[1:], 1) + np.diag(k[1:], -1)
+    return out
 
 
 def prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states) -> dict:
@@ -82,17 +259,24 @@ def prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states) -> 
         if m > 1:
             position[i, :m] = np.arange(m) / (m - 1)
     col = lambda name: np.array([float(getattr(s, name)) for s in settings])[:, None]  # noqa: E731
-    omega = 2.0 * math.pi * col("frequency_hz") * (1.0 - col("tip_looseness") * position)
-    stiffness = omega * omega
     g_size = float(np.linalg.norm(gravity))
-    gravity_stiffness = ROD_LEVER / lengths * col("gravity_scale") * g_size
-    damp_rel = 2.0 * col("damping_ratio") * np.sqrt(stiffness + gravity_stiffness)
+    inertia = np.tile(np.eye(n_links), (n_chains, 1, 1))  # padding links: decoupled, unit mass
+    spring = np.zeros((n_chains, n_links, n_links))
+    damping = np.zeros((n_chains, n_links, n_links))
+    load = np.zeros((n_chains, n_links))
+    mech = []
+    omega_max = damp_max = 0.0
+    for i, (c, st) in enumerate(zip(chains, settings)):
+        m = c.n_links
+        mc = chain_mechanics(c.lengths_m, st, g_size)
+        mech.append(mc)
+        inertia[i, :m, :m] = mc["inertia"]
+        spring[i, :m, :m] = mc["spring"]
+        damping[i, :m, :m] = mc["damping"] + float(st.air_drag) * mc["inertia"]
+        load[i, :m] = mc["load"]
+        omega_max = max(omega_max, mc["omega_max"])
+        damp_max = max(damp_max, mc["damp_max"])
     drag = col("air_drag")
-    damping = damp_rel + drag
-    relative_share = np.where(damping > 0.0, damp_rel / np.where(damping > 0.0, damping, 1.0), 0.0)
-
-    omega_max = float(np.sqrt(np.max((stiffness + gravity_stiffness)[mask])))
-    damp_max = float(np.max(damping[mask]))
     wanted = max(
         max(int(s.substeps) for s in settings),
         math.ceil(dt_s * omega_max / OMEGA_STEP_MAX),
@@ -141,9 +325,11 @@ def prepare(chains, settings, gravity_mps2, dt_s, colliders, initial_states) -> 
         "pivots": pivots,
         "anchor_acc": anchor_acc,
         "anchor_vel": anchor_vel,
-        "stiffness": stiffness,
+        "mechanics": mech,
+        "inertia": inertia,
+        "spring": spring,
         "damping": damping,
-        "relative_share": relative_share,
+        "load": load,
         "drag": drag[:, :, None],
         "body_response": col("body_response")[:, :, None],
         "felt_const": (col("gravity_scale") * gravity)[:, None, :],
@@ -186,11 +372,15 @@ def pivot_derivatives(pivots: np.ndarray, dt_s: float) -> tuple[np.ndarray, np.n
 
 
 def initial_state(prep: dict) -> tuple[np.ndarray, np.ndarray]:
-    """Settled pre-roll (static equilibrium of frame 0), or the given initial states."""
+    """Settled pre-roll (static equilibrium of frame 0, moving with the animation), or the given states.
+
+    Returns d, u of shape (C, N, 3).
+    """
     t0 = prep["targets"][0]
-    felt0 = prep["felt_const"] - prep["body_response"] * prep["anchor_acc"][0][:, None, :]
-    felt0 = felt0 - prep["drag"] * prep["anchor_vel"][0][:, None, :]  # (C, 1, 3)
-    d = settle_directions(t0, felt0, prep["stiffness"], ROD_LEVER / prep["lengths_safe"], prep["bend"])
+    felt0 = prep["felt_const"][:, 0] - prep["body_response"][:, 0] * prep["anchor_acc"][0]
+    felt0 = felt0 - prep["drag"][:, 0] * prep["anchor_vel"][0]  # (C, 3)
+    d = settle_directions(t0, felt0, prep["spring"], prep["load"], prep["inertia"], prep["cos_lim"],
+                          prep["sin_lim"], prep["bend_limited"])
     n_chains, n_links = prep["n_chains"], prep["n_links"]
     u = np.cross(prep["spin"][0].T.reshape(n_chains, n_links, 3), d)
     states = prep["initial_states"]
@@ -206,49 +396,47 @@ def initial_state(prep: dict) -> tuple[np.ndarray, np.ndarray]:
     return d, u
 
 
-def settle_directions(target, felt, stiffness, lever, bend_rad, n_grid: int = 64):
-    """Static equilibrium of each link: spring toward ``target`` against the felt acceleration.
+def settle_directions(target, felt, spring, load, inertia, cos_lim, sin_lim, limited):
+    """Static equilibrium of each chain: joint springs toward ``target`` against the felt load.
 
-    In the plane of the target and the felt direction, the deflection ``theta`` from the
-    target solves ``spring_moment(k, theta) = lever |f| sin(phi - theta)`` (``phi``: angle from target to the
-    felt direction). The first root reached from the target (``theta`` growing from 0) is the
-    one the link settles into when it starts from its pose.
+    Minimises ``V(d) = 1/2 (d - t)^T K_s (d - t) - sum_j b_j f . d_j`` over unit directions by
+    Newton's method on the spheres (the tangent Hessian ``K_s + diag(b_j f . d_j - d_j . grad_j)``,
+    clamped to stay positive), starting from the animated pose with turns of at most
+    ``SETTLE_STEP_MAX`` per iteration, so the chain settles into the equilibrium it reaches from
+    its pose. Bend cones are applied after every iteration.
 
     Parameters
     ----------
-    target : (C, N, 3); felt : (C, 1, 3); stiffness, lever : (C, N); bend_rad : (C, 1)
+    target : (C, N, 3); felt : (C, 3); spring, inertia : (C, N, N); load : (C, N);
+    cos_lim, sin_lim : (C, 1); limited : bool
 
     Returns
     -------
     ndarray, shape (C, N, 3)
     """
-    size = np.sqrt(dot(felt, felt))  # (C, 1)
-    size = np.where(size > FELT_NONE_MPS2, size, 0.0)
-    down = unit_or(felt, np.zeros(3))
-    cos_phi = np.clip(dot(target, down), -1.0, 1.0)
-    phi = np.arccos(cos_phi)
-    pull = lever * size
-    plane = unit_or(down - cos_phi[..., None] * target, any_perpendicular(target))
-    frac = np.linspace(0.0, 1.0, n_grid + 1)
-    grid = phi[..., None] * frac  # (C, N, G)
-    resid = spring_moment(stiffness[..., None], grid) - pull[..., None] * np.sin(phi[..., None] - grid)
-    first = np.argmax(resid >= 0.0, axis=-1)  # the last grid point always qualifies (k phi >= 0)
-    hi = np.take_along_axis(grid, first[..., None], -1)[..., 0]
-    lo = np.take_along_axis(grid, np.maximum(first - 1, 0)[..., None], -1)[..., 0]
-    for _ in range(50):
-        mid = 0.5 * (lo + hi)
-        neg = spring_moment(stiffness, mid) - pull * np.sin(phi - mid) < 0.0
-        lo = np.where(neg, mid, lo)
-        hi = np.where(neg, hi, mid)
-    theta = np.minimum(np.where(first == 0, 0.0, hi), bend_rad)
-    return target * np.cos(theta)[..., None] + plane * np.sin(theta)[..., None]
+    from .link_constraints import constrained_solve, limit_bend  # the solver's own constrained solve
 
-
-def spring_moment(stiffness, angle_rad):
-    """Spring's angular acceleration at ``angle_rad`` from the pose: ``k 2 tan(angle / 2)``
-    (``k angle`` to within 3 % up to 35 degrees), levelling off past 120 degrees
-    (``SPRING_FLOOR``) and falling to 0 at 180 degrees."""
-    return stiffness * 2.0 * np.sin(angle_rad) / np.maximum(1.0 + np.cos(angle_rad), SPRING_FLOOR)
+    size = np.sqrt(dot(felt, felt))
+    felt = np.where((size > FELT_NONE_MPS2)[:, None], felt, 0.0)
+    pull = load[..., None] * felt[:, None, :]  # b_j f, (C, N, 3)
+    d = target.copy()
+    scale = np.einsum("cii->c", spring)[:, None] + np.abs(load) * np.sqrt(dot(felt, felt))[:, None] + 1e-300
+    reg = (1e-9 * np.max(scale, axis=1)[:, None, None] + 1e-12) * inertia
+    for _ in range(SETTLE_ITERATIONS):
+        grad = spring @ (d - target) - pull
+        curv = np.maximum(-dot(d, grad), 0.0)  # (C, N)
+        hess = spring + reg + curv[..., None] * np.eye(d.shape[1])
+        a = constrained_solve(np.linalg.inv(hess), -grad, d)
+        step = np.sqrt(dot(a, a))
+        big = np.max(step, axis=1, keepdims=True)
+        a = a * np.minimum(1.0, SETTLE_STEP_MAX / np.maximum(big, 1e-300))[..., None]
+        d = d + a
+        d = d / np.sqrt(dot(d, d))[..., None]
+        if limited:
+            d, _ = limit_bend(d, np.zeros_like(d), target, cos_lim, sin_lim)
+        if float(np.max(step)) < 1e-14:
+            break
+    return d
 
 
 def package(prep: dict, out: np.ndarray, rates: np.ndarray, contacts: np.ndarray) -> ChainMotion:

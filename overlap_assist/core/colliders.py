@@ -94,7 +94,8 @@ def project_out(
     capsule_radii_m: np.ndarray,
     ground_height_m: float | None,
     max_passes: int,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    with_normals: bool = False,
+):
     """Move link ends out of colliders; remove their velocity into the surface.
 
     Parameters
@@ -117,10 +118,14 @@ def project_out(
         New arrays (inputs are not modified).
     touched : ndarray of bool, shape (n_chains, n_links)
         Links whose end was pushed out.
+    normals : ndarray, shape (n_chains, n_links, 3)
+        Only with ``with_normals``: the outward surface normal at each touched link's end (the
+        last contact), zero elsewhere.
     """
     active = lengths_m > 0.0
     touched = np.zeros(lengths_m.shape, dtype=bool)
     safe_len = np.where(active, lengths_m, 1.0)
+    normals = np.zeros(dirs.shape)
     for _ in range(max_passes):
         heads, tips = heads_and_tips(pivot_m, dirs, lengths_m)
         depth = np.full(lengths_m.shape, SURFACE_SLACK_M)
@@ -156,6 +161,10 @@ def project_out(
             hit = hit & ~ground_hit
         if not (hit.any() or ground_hit.any()):
             break
+        # A link below one that is moved in this pass waits for the next pass: its head moves
+        # with its parent's end (treated now with its old head it could flip upright).
+        above = np.cumsum(hit | ground_hit, axis=-1) - (hit | ground_hit) > 0
+        hit, ground_hit = hit & ~above, ground_hit & ~above
         new_tips = tips
         normal = np.zeros(tips.shape)
         if hit.any():
@@ -169,8 +178,9 @@ def project_out(
             flat = (tips - heads) * np.array([1.0, 1.0, 0.0])
             flat = unit_or(flat, np.array([1.0, 0.0, 0.0]))
             on_ground = heads + reach[..., None] * flat + drop[..., None] * up
-            # A head below the plane cannot bring its end up to it: point straight up instead.
-            on_ground = np.where((drop > 0.0)[..., None], heads + safe_len[..., None] * up, on_ground)
+            # A head below the plane cannot bring its end up to it: point straight up instead (a head
+            # on the plane, within the slack, lies flat: rounding must not flip it upright).
+            on_ground = np.where((drop > SURFACE_SLACK_M)[..., None], heads + safe_len[..., None] * up, on_ground)
             new_tips = np.where(ground_hit[..., None], on_ground, new_tips)
             normal = np.where(ground_hit[..., None], up, normal)
         moved = hit | ground_hit
@@ -182,4 +192,7 @@ def project_out(
         into = np.minimum(dot(rates, n_t), 0.0) * moved
         rates = rates - into[..., None] * n_t
         touched |= moved
+        normals = np.where(moved[..., None], normal, normals)
+    if with_normals:
+        return dirs, rates, touched, normals
     return dirs, rates, touched

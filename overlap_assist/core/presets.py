@@ -30,6 +30,8 @@ SETTING_RANGES = {
     "bend_limit_deg": (5.0, 180.0),
     "collision_radius_m": (0.0, 1.0),
     "substeps": (1, 16),
+    "thickness_taper": (0.0, 0.95),
+    "tip_mass_ratio": (0.0, 20.0),
 }
 
 

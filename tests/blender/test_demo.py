@@ -129,17 +129,21 @@ def test_the_blend_reopens_with_both_scenes_and_the_bake_layer(demo):
         assert scene.camera is not None and scene.render.engine == 'BLENDER_WORKBENCH'
         assert sum(1 for o in scene.objects if o.type == 'MESH' and o.parent is rig) > 20
         # The chain bones have no keys of their own: their motion comes from the baked layer alone,
-        # so the ponytail tip turns away from its rest pose at the apex and differs at the settle.
+        # so the ponytail turns away from its rest pose at the apex and differs at the settle.
+        # (Changed with the two-way coupled chain: the ponytail moves as a whole and, weightless
+        # in flight, its joint springs bring it back toward its pose by the apex, so the turn is
+        # spread over its joints and largest around push-off and landing; the largest joint turn
+        # over the contact sheet's frames is checked, no longer the tip bone's at the apex.)
         bpy.context.window.scene = scene
         bpy.context.view_layer.update()   # 4.5 in module mode evaluates a switched-to scene only after this
-        tip = rig.pose.bones[CHAINS[0][2][-1]]
+        bones = [rig.pose.bones[n] for n in CHAINS[0][2]]
         frames = demo["sheet_frames"][jump.name]
-        scene.frame_set(frames["apex"])
-        at_apex = np.array(tip.rotation_quaternion)
-        scene.frame_set(frames["settle"])
-        settled = np.array(tip.rotation_quaternion)
-        assert 2 * np.degrees(np.arccos(min(abs(at_apex[0]), 1.0))) > 5.0
-        assert np.abs(at_apex - settled).max() > 0.02
+        turns = {}
+        for event, frame in frames.items():
+            scene.frame_set(frame)
+            turns[event] = np.array([b.rotation_quaternion for b in bones])
+        assert max(2 * np.degrees(np.arccos(min(abs(q[0]), 1.0))) for qs in turns.values() for q in qs) > 5.0
+        assert max(np.abs(q - turns["settle"]).max() for q in turns.values()) > 0.02
 
 
 def test_the_demo_command_prints_the_findings_and_writes_the_outputs(tmp_path, capfd):
