@@ -54,6 +54,8 @@ def build_parser():
     w.add_argument("--armature")
     d = sub.add_parser("demo", help="build our demo character and jumps, analyse them, write the outputs")
     d.add_argument("--out", default="out/demo", help="output folder (created; existing outputs are replaced)")
+    from .cli_flight import add_fix_flight_parser
+    add_fix_flight_parser(sub)
     return p
 
 
@@ -183,6 +185,8 @@ def cmd_analyze(args, out):
             d = analysis_to_dict(result)
             d["armature"] = obj.name
             d["warnings"] = warnings
+            from .cli_flight import spin_json
+            d["spin"] = spin_json(obj, bpy.context.scene)
             out.write(json.dumps(d) + "\n")
         else:
             out.write(f"{obj.name}: {summary_line(result)}\n")
@@ -370,8 +374,13 @@ def cmd_process(args, out):
     return 0
 
 
+def cmd_fix_flight(args, out):
+    from .cli_flight import cmd_fix_flight as run
+    return run(args, out)
+
+
 COMMANDS = {"analyze": cmd_analyze, "simulate": cmd_simulate, "bake": cmd_bake, "batch": cmd_batch,
-            "process": cmd_process, "demo": cmd_demo}
+            "process": cmd_process, "demo": cmd_demo, "fix-flight": cmd_fix_flight}
 
 
 def main(argv=None):

@@ -5,7 +5,6 @@ lies on the scene-gravity parabola (Halliday, Resnick & Walker, ch. 4) within 1 
 frame of the flight; the user's action stays byte-identical; removing the layer restores the
 pose exactly; one undo step takes the fix back; running it again replaces it.
 """
-import addon_utils
 import bpy
 import numpy as np
 import pytest
@@ -219,12 +218,30 @@ def test_demo_character_floaty_clip_is_fixed():
     assert action_digest(action) == digest
 
 
-@pytest.fixture
-def rigify_rig():
-    addon_utils.enable("rigify", default_set=True)
-    bpy.ops.object.armature_human_metarig_add()
-    bpy.ops.pose.rigify_generate()
-    rig = bpy.context.active_object
+RIGIFY_SCRIPT = """
+import json, os, sys
+sys.path.insert(0, {root!r}); sys.path.insert(0, {tests!r})
+import bpy
+import addon_utils
+import numpy as np
+import overlap_assist
+from blender_helpers import action_digest
+import test_flight_fix as T
+bpy.ops.wm.read_factory_settings(use_empty=True)
+overlap_assist.register()
+addon_utils.enable("rigify", default_set=True)
+bpy.ops.object.armature_human_metarig_add()
+bpy.ops.pose.rigify_generate()
+rig = bpy.context.active_object
+out = T.rigify_checks(rig)
+print("RESULT " + json.dumps(out), flush=True)
+sys.stdout.flush()
+os._exit(0)   # Rigify's generated rig UI stays registered; Blender 4.5 would hang at exit
+"""
+
+
+def rigify_checks(rig):
+    """Fix and spin checks on a generated Rigify rig whose root is keyed with the floaty jump."""
     scene = bpy.context.scene
     scene.gravity = (0, 0, -G0)
     ev = jump_events(FLOATY)
@@ -235,22 +252,64 @@ def rigify_rig():
     body = rig.overlap_assist.body
     body.body_source, body.segment_table = 'COM', 'de_leva_female'
     body.bone_overrides = "head=DEF-spine.006, neck=DEF-spine.004"
-    yield rig
-    addon_utils.disable("rigify", default_set=True)
-
-
-def test_rigify_rig_fix_and_spin(rigify_rig):
-    rig, scene = rigify_rig, bpy.context.scene
     action = rig.animation_data.action
     digest = action_digest(action)
     result, _ = run_analysis(rig, scene)
     (flight,) = result.flights
-    assert run(rig, "fix_flight") == {'FINISHED'}
-    assert flight_fix_layer.fix_info(rig)["bone"] == "root"
+    status = run(rig, "fix_flight")
     err, implied = arc_error(rig, flight)
-    assert err < 1e-3 and implied == pytest.approx(G0, rel=2e-3)
-    assert action_digest(action) == digest
+    out = {"status": sorted(status), "bone": flight_fix_layer.fix_info(rig)["bone"], "arc_error_m": err,
+           "implied_gravity": implied, "digest_kept": action_digest(action) == digest,
+           "gravity_ratio_before": flight.gravity_ratio}
     _r, checks, _w = flight_jobs.run_spin_check(rig, scene)
-    assert checks[0].finding is None
-    assert run(rig, "remove_flight_fix") == {'FINISHED'}
-    assert rig.animation_data.action == action and action_digest(action) == digest
+    out["spin_finding"] = checks[0].finding
+    out["spin_change_deg_s"] = checks[0].change_deg_s
+    removed = run(rig, "remove_flight_fix")
+    out["removed"] = sorted(removed)
+    out["restored"] = rig.animation_data.action == action and action_digest(action) == digest \
+        and len(rig.animation_data.nla_tracks) == 0
+    return out
+
+
+def test_rigify_rig_fix_and_spin():
+    # In its own process: the generated rig's UI script registers classes nothing unregisters.
+    import json
+    import pathlib
+    import subprocess
+    import sys
+    tests = pathlib.Path(__file__).resolve().parent
+    script = RIGIFY_SCRIPT.format(root=str(tests.parents[1]), tests=str(tests))
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=600)
+    lines = [ln for ln in proc.stdout.splitlines() if ln.startswith("RESULT ")]
+    assert lines, proc.stderr[-2000:]
+    out = json.loads(lines[-1][len("RESULT "):])
+    assert out["status"] == ["FINISHED"] and out["bone"] == "root"
+    assert out["gravity_ratio_before"] == pytest.approx(0.5, abs=0.05)
+    assert out["arc_error_m"] < 1e-3 and out["implied_gravity"] == pytest.approx(G0, rel=2e-3)
+    assert out["digest_kept"] and out["removed"] == ["FINISHED"] and out["restored"]
+    assert out["spin_finding"] is None
+
+
+def test_cli_fix_flight_writes_a_fixed_copy_and_analyze_reports_the_spin(jumper, tmp_path):
+    import hashlib
+    import json
+
+    from blender_helpers import run_cli
+    src = tmp_path / "jump.blend"
+    bpy.ops.wm.save_as_mainfile(filepath=str(src))
+    before = hashlib.sha256(src.read_bytes()).hexdigest()
+    fixed = tmp_path / "jump.fixed.blend"
+    proc = run_cli("fix-flight", str(src), "--out", str(fixed), "--json")
+    assert proc.returncode == 0, proc.stderr
+    d = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert d["layer"] == FIX and d["bone"] == "root" and fixed.exists()
+    (fl,) = d["flights"]
+    assert fl["mode"] == "keep_contacts" and fl["apex_after_m"] > 1.5 * fl["apex_before_m"]   # 0.5 g -> 1 g
+    assert hashlib.sha256(src.read_bytes()).hexdigest() == before                          # input untouched
+    proc = run_cli("analyze", str(fixed), "--json")
+    assert proc.returncode == 0, proc.stderr
+    a = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert a["flights"][0]["gravity_ratio"] == pytest.approx(1.0, abs=0.03)                 # the fixed file
+    assert a["spin"]["flights"][0]["finding"] is None
+    proc = run_cli("fix-flight", str(src))
+    assert proc.returncode == 2 and "--out" in proc.stderr and "Traceback" not in proc.stderr
