@@ -91,14 +91,16 @@ def worker_prefix():
     return [sys.executable, "-m", "overlap_assist"]
 
 
-def worker_command(prefix, path, out_dir, stem, preset_file):
+def worker_command(prefix, path, out_dir, stem, preset_file, fix=False):
     args = ["process", path, "--out-dir", out_dir, "--stem", stem]
     if preset_file:
         args += ["--preset-file", preset_file]
+    if fix:
+        args.append("--fix")
     return [*prefix, *args]
 
 
-def run_one(prefix, path, out_dir, stem, preset_file):
+def run_one(prefix, path, out_dir, stem, preset_file, fix=False):
     """Process one input in a worker process; returns a log row."""
     start = time.perf_counter()
     row = {"input": path, "stem": stem, "status": "failed", "message": "", "seconds": 0.0}
@@ -107,10 +109,11 @@ def run_one(prefix, path, out_dir, stem, preset_file):
             row["message"] = f"no such file: {path}"
             return row
         stamp = stamp_for(path, preset_file)
+        stamp["fix"] = bool(fix)
         if up_to_date(out_dir, stem, stamp):
             row.update(status="skipped", message="outputs up to date")
             return row
-        proc = subprocess.run(worker_command(prefix, path, out_dir, stem, preset_file), capture_output=True, text=True,
+        proc = subprocess.run(worker_command(prefix, path, out_dir, stem, preset_file, fix), capture_output=True, text=True,
                               timeout=WORKER_TIMEOUT_S, stdin=subprocess.DEVNULL)
         if proc.returncode != 0:
             lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
@@ -138,7 +141,7 @@ def write_json_atomic(path, data):
     os.replace(tmp, path)
 
 
-def run_batch(patterns, out_dir, preset_file=None, jobs=1, out=sys.stdout):
+def run_batch(patterns, out_dir, preset_file=None, jobs=1, out=sys.stdout, fix=False):
     """Process every input; returns (rows, exit status). Prints a summary table to ``out``."""
     os.makedirs(out_dir, exist_ok=True)
     paths = expand_inputs(patterns)
@@ -146,7 +149,7 @@ def run_batch(patterns, out_dir, preset_file=None, jobs=1, out=sys.stdout):
     jobs = max(1, min(jobs, len(paths) or 1))
     prefix = worker_prefix()
     with concurrent.futures.ThreadPoolExecutor(max_workers=jobs) as pool:
-        futures = [pool.submit(run_one, prefix, p, os.path.abspath(out_dir), s, preset_file)
+        futures = [pool.submit(run_one, prefix, p, os.path.abspath(out_dir), s, preset_file, fix)
                    for p, s in zip(paths, stems)]
         rows = [f.result() for f in futures]
     width = max([len(r["input"]) for r in rows] + [5])

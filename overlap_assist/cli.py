@@ -46,12 +46,15 @@ def build_parser():
     t.add_argument("--out", required=True, help="output folder")
     t.add_argument("--preset-file", help="chain preset applied to every file's chains (and bakes them)")
     t.add_argument("--jobs", type=int, default=1, help="files processed at once (worker processes)")
+    t.add_argument("--fix", action="store_true", help="also fix each flight (CoM on the ballistic arc) and write "
+                                                     "<stem>.fixed.blend beside the baked file")
     w = sub.add_parser("process", help="one file of a batch: analysis JSON, report and (with chains) a baked copy")
     w.add_argument("file")
     w.add_argument("--out-dir", required=True)
     w.add_argument("--stem", required=True, help="base name of the outputs")
     w.add_argument("--preset-file")
     w.add_argument("--armature")
+    w.add_argument("--fix", action="store_true", help="fix the flights first and save <stem>.fixed.blend")
     d = sub.add_parser("demo", help="build our demo character and jumps, analyse them, write the outputs")
     d.add_argument("--out", default="out/demo", help="output folder (created; existing outputs are replaced)")
     from .cli_flight import add_fix_flight_parser
@@ -329,7 +332,7 @@ def cmd_batch(args, out):
         from .core import presets
         presets.load_preset_file(args.preset_file)  # refuse a bad preset before any work
     _, status = run_batch(args.inputs, args.out, os.path.abspath(args.preset_file) if args.preset_file else None,
-                          args.jobs, out)
+                          args.jobs, out, fix=args.fix)
     return status
 
 
@@ -348,6 +351,11 @@ def cmd_process(args, out):
         scene = bpy.context.scene
         result, warnings = run_analysis(obj, scene)
         outputs, summary = [], summary_line(result)
+        extras = {}
+        if args.fix:   # the chains below are then simulated on the corrected body
+            from .cli_flight import process_fix
+            extras, line = process_fix(obj, scene, args.out_dir, args.stem, outputs)
+            summary += f"; {line}"
         chains = [c for c in obj.overlap_assist.chains if not c.mute]
         sampled = motion = None
         keys = {}
@@ -364,6 +372,7 @@ def cmd_process(args, out):
             outputs.append(blend)
             summary += f"; {stats.summary()}"
         clip = clip_dict(args.stem, result, sampled, motion, keys)
+        clip.update(extras)
         clip["analysis"]["warnings"] = warnings
         analysis_name = args.stem + ".analysis.json"
         write_atomic(os.path.join(args.out_dir, analysis_name), json.dumps(clip["analysis"], indent=1))

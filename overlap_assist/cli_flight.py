@@ -66,3 +66,22 @@ def cmd_fix_flight(args, out):
                 out.write(f"warning: {w}\n")
             out.write(f"wrote {saved}\n{CAUTION}\n")
     return 0
+
+
+def process_fix(obj, scene, out_dir, stem, outputs):
+    """Batch worker step: report extras, then the fix layer, saved as ``<stem>.fixed.blend``.
+
+    Returns (report clip extras, summary text); appends the file name to ``outputs``.
+    """
+    from .blender import flight_jobs
+    from .cli import save_blend_atomic
+    from .core.errors import OverlapAssistError
+    extras = flight_jobs.report_extras(obj, scene)
+    try:
+        stats, _fix, _result, _warnings = flight_jobs.apply_fix(obj, scene)
+    except OverlapAssistError as exc:
+        return extras, f"flight not fixed: {exc}"
+    name = stem + ".fixed.blend"
+    save_blend_atomic(__import__("bpy"), os.path.join(out_dir, name))
+    outputs.append(name)
+    return extras, stats.summary()

@@ -107,3 +107,34 @@ def fix_summary(obj):
     """The stored summary of the object's fix layer (dict, empty without one)."""
     info = flight_fix_layer.fix_info(obj)
     return json.loads(info["summary"]) if info.get("summary") else {}
+
+
+def report_extras(obj, scene):
+    """The report's optional "spin" and "flight_fix" entries for this rig (nothing is written).
+
+    Either is left out, with its reason in ``notes``, when the rig cannot provide it (no flight,
+    no matched segments).
+    """
+    from ..core.effective_gravity import up_axis
+    from ..core.errors import OverlapAssistError
+    out, notes = {}, []
+    try:
+        _result, checks, _w = run_spin_check(obj, scene)
+        out["spin"] = spin_to_dict(checks)
+    except OverlapAssistError as exc:
+        notes.append(f"spin check: {exc}")
+    try:
+        fix, result, frames, _w = compute_fix(obj, scene)
+        whole = np.isclose(frames, np.round(frames))
+        up = up_axis(result.gravity_mps2)
+        before = (fix.corrected_com_m - fix.offsets_m)[whole] @ up
+        after = fix.corrected_com_m[whole] @ up
+        out["flight_fix"] = {"frames": [float(f) for f in frames[whole]],
+                             "height_before_m": [round(float(v), 5) for v in before],
+                             "height_after_m": [round(float(v), 5) for v in after],
+                             "flights": fix_to_dict(fix, result.fps, float(frames[0]))["flights"]}
+    except OverlapAssistError as exc:
+        notes.append(f"flight fix: {exc}")
+    if notes:
+        out["flight_notes"] = notes
+    return out

@@ -313,3 +313,20 @@ def test_cli_fix_flight_writes_a_fixed_copy_and_analyze_reports_the_spin(jumper,
     assert a["spin"]["flights"][0]["finding"] is None
     proc = run_cli("fix-flight", str(src))
     assert proc.returncode == 2 and "--out" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_batch_fix_writes_the_fixed_file_and_the_report_shows_both_arcs(jumper, tmp_path):
+    import json
+
+    from blender_helpers import run_cli
+    src = tmp_path / "hop.blend"
+    bpy.ops.wm.save_as_mainfile(filepath=str(src))
+    out = tmp_path / "out"
+    proc = run_cli("batch", str(src), "--out", str(out), "--fix")
+    assert proc.returncode == 0, proc.stderr
+    log = json.loads((out / "batch_log.json").read_text())
+    assert log["ok"] == 1, log
+    assert (out / "hop.fixed.blend").exists()
+    page = (out / "hop.report.html").read_text()
+    assert "Flight arc before and after the fix" in page and "Spin in flight" in page
+    assert 'data-arc="after"' in page
