@@ -234,12 +234,8 @@ def check_spin(motion: SegmentMotion, windows: Sequence[FlightWindow]) -> tuple:
         onset = float(frames[sel[beyond[0]]]) if beyond.size else None
         finding = None
         if onset is not None:
-            first = beyond[0]
-            onset_axis = BODY_AXES[int(np.argmax(np.abs(dh_body[first])))]
-            onset_sign = dh_body[first, BODY_AXES.index(onset_axis)]
-            finding = (f"the body starts {_direction(onset_axis, onset_sign)} at frame {onset:.0f} "
-                       f"with nothing to push against: {np.rad2deg(signed):+.0f}°/s "
-                       f"({_direction(axis, signed)}, largest at frame {frames[sel[at]]:.0f})")
+            finding = (f"the body starts {_direction(axis, signed)} at frame {onset:.0f} with nothing to push "
+                       f"against: {np.rad2deg(signed):+.0f}°/s by frame {frames[sel[at]]:.0f}")
         out.append(SpinCheck(
             takeoff_frame=float(frames[0] + w.takeoff_s * motion.fps),
             touchdown_frame=float(frames[0] + w.touchdown_s * motion.fps), kind=w.kind,
