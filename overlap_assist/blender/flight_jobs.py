@@ -100,6 +100,9 @@ def apply_fix(obj, scene, mode="KEEP_CONTACTS", blend_frames=3.0, influence=1.0,
     details = {"mode": mode, "blend_frames": float(blend_frames), "summary": json.dumps(summary)}
     stats = flight_fix_layer.write_fix(obj, scene, np.round(frames[whole]), fix.offsets_m[whole], bone,
                                        influence, details)
+    if flight_fix_layer.find_bake(obj) is not None:
+        warnings = warnings + ["the chains were baked on the body before this fix: bake them again so they "
+                               "follow the fixed flight"]
     return stats, fix, result, warnings
 
 
