@@ -67,6 +67,8 @@ def build_parser():
     add_target_options(t, "default: every armature that moves")
     t.add_argument("--jobs", type=int, default=None,
                    help="files processed at once (worker processes; default and maximum: the CPU count)")
+    t.add_argument("--fix", action="store_true", help="also fix each flight (center of mass on the ballistic arc) "
+                                                     "and write <stem>.fixed.blend beside the baked file")
     w = sub.add_parser("process", help="one file of a batch: analysis JSON, report and (with chains) a baked copy")
     w.add_argument("file", help=".blend file to read (never modified)")
     w.add_argument("--out-dir", required=True, help="folder for the outputs")
@@ -74,8 +76,11 @@ def build_parser():
     w.add_argument("--preset-file", help="chain preset applied to the file's chains")
     add_target_options(w, "default: every armature that moves")
     w.add_argument("--details-file", help=argparse.SUPPRESS)
+    w.add_argument("--fix", action="store_true", help="fix the flights first and save <stem>.fixed.blend")
     d = sub.add_parser("demo", help="build our demo character and jumps, analyze them, write the outputs")
     d.add_argument("--out", default="out/demo", help="output folder (created; existing outputs are replaced)")
+    from .cli_flight import add_fix_flight_parser
+    add_fix_flight_parser(sub)
     return p
 
 
@@ -323,10 +328,14 @@ def cmd_analyze(args, io):
             with in_scene(bpy, scene):
                 apply_body_options(obj, args)
                 result, warnings = run_analysis(obj, scene)
+                if args.json:
+                    from .cli_flight import spin_json
+                    spin = spin_json(obj, scene)
             if args.json:
                 d = analysis_to_dict(result)
                 d["armature"], d["scene"] = obj.name, scene.name
                 d["warnings"] = warnings
+                d["spin"] = spin
                 io.out.write(json.dumps(d) + "\n")
             else:
                 io.out.write(f"{obj.name} (scene {scene.name}): {summary_line(result)}\n")
@@ -513,7 +522,7 @@ def cmd_batch(args, io):
         presets.load_preset_file(args.preset_file)  # refuse a bad preset before any work
     out_dir = outputs.out_folder_target(args.out)
     _, status = run_batch(args.inputs, out_dir, os.path.abspath(args.preset_file) if args.preset_file else None,
-                          jobs, io.out, scene=args.scene, armature=args.armature)
+                          jobs, io.out, scene=args.scene, armature=args.armature, fix=args.fix)
     return status
 
 
@@ -522,7 +531,9 @@ def cmd_process(args, io):
 
     Every armature that moves (or the one named) is analyzed in its scene; one report holds them all.
     Outputs: ``<stem>.analysis.json`` (``<stem>.<armature>.analysis.json`` each when there are several),
-    ``<stem>.report.html`` and, when chains were baked, ``<stem>.baked.blend``.
+    ``<stem>.report.html``, when chains were baked ``<stem>.baked.blend`` and, with ``--fix``,
+    ``<stem>.fixed.blend`` (the flight-fix layer; the baked file then holds the fix and the chains
+    baked on the corrected body).
     """
     bpy = import_bpy()
     from .blender.analyze import run_analysis, summary_line
@@ -539,10 +550,26 @@ def cmd_process(args, io):
         several = len(targets) > 1
         doc = presets.load_preset_file(args.preset_file) if args.preset_file else None
         clips, summaries, outs, baked = [], [], [], False
+        extras, fix_lines = {}, {}
+        if args.fix:   # fix every flight first: the chains below are then simulated on the corrected body
+            from .cli_flight import process_fix
+            fixed = False
+            for obj, scene in targets:
+                with in_scene(bpy, scene):
+                    extras[obj.name], fix_lines[obj.name], done = process_fix(obj, scene)
+                    fixed = fixed or done
+            if fixed:   # the fix layer alone; the baked file beside it holds the fix and the bake
+                name = args.stem + ".fixed.blend"
+                save_blend_atomic(bpy, os.path.join(out_dir, name), compress)
+                outs.append(name)
+        from .blender.flight_jobs import fix_muted
         for obj, scene in targets:
             with in_scene(bpy, scene):
-                result, warnings = run_analysis(obj, scene)
+                with fix_muted(obj):   # the analysis is of the animation as keyed
+                    result, warnings = run_analysis(obj, scene)
                 summary = summary_line(result)
+                if obj.name in fix_lines:
+                    summary += f"; {fix_lines[obj.name]}"
                 sampled = motion = None
                 keys = {}
                 if any(not c.mute for c in obj.overlap_assist.chains):
@@ -559,6 +586,7 @@ def cmd_process(args, io):
                     baked = True
             name = f"{obj.name} (scene {scene.name})" if several else args.stem
             clip = clip_dict(name, result, sampled, motion, keys)
+            clip.update(extras.get(obj.name, {}))
             clip["analysis"]["warnings"] = warnings
             clip["analysis"]["armature"], clip["analysis"]["scene"] = obj.name, scene.name
             clips.append(clip)
@@ -583,8 +611,13 @@ def _safe(name):
     return "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in name) or "armature"
 
 
+def cmd_fix_flight(args, io):
+    from .cli_flight import cmd_fix_flight as run
+    return run(args, io)
+
+
 COMMANDS = {"analyze": cmd_analyze, "simulate": cmd_simulate, "bake": cmd_bake, "batch": cmd_batch,
-            "process": cmd_process, "demo": cmd_demo}
+            "process": cmd_process, "demo": cmd_demo, "fix-flight": cmd_fix_flight}
 
 
 def _os_error_line(exc: OSError) -> str:
