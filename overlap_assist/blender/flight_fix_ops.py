@@ -2,9 +2,9 @@
 import bpy
 from bpy.props import EnumProperty, FloatProperty
 
-from ..core.errors import OverlapAssistError
 from ..core.flight_fix import BLEND_FRAMES
 from . import flight_fix_layer, flight_jobs
+from .op_errors import guarded
 from .selection import armature_poll
 
 FIX_MODES = (
@@ -19,6 +19,7 @@ def _progress(context):
     return wm, (lambda f: wm.progress_update(int(100 * f)))
 
 
+@guarded
 class OVERLAP_ASSIST_OT_check_spin(bpy.types.Operator):
     """Measure the whole body's angular momentum in each flight and report spin that starts or stops with nothing to push against"""
     bl_idname = "overlap_assist.check_spin"
@@ -32,11 +33,8 @@ class OVERLAP_ASSIST_OT_check_spin(bpy.types.Operator):
     def execute(self, context):
         obj, scene = context.active_object, context.scene
         wm, progress = _progress(context)
-        try:
+        try:   # a domain error becomes its one line through @guarded
             _result, checks, warnings = flight_jobs.run_spin_check(obj, scene, progress)
-        except OverlapAssistError as exc:
-            self.report({'ERROR'}, str(exc))
-            return {'CANCELLED'}
         finally:
             wm.progress_end()
         flight_jobs.store_spin_summary(obj, checks)
@@ -47,6 +45,7 @@ class OVERLAP_ASSIST_OT_check_spin(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_fix_flight(bpy.types.Operator):
     """Put the body's center of mass on the exact ballistic arc in every flight, on its own removable NLA layer (the animation itself is not changed)"""
     bl_idname = "overlap_assist.fix_flight"
@@ -71,9 +70,6 @@ class OVERLAP_ASSIST_OT_fix_flight(bpy.types.Operator):
         try:
             stats, fix, result, warnings = flight_jobs.apply_fix(obj, scene, self.mode, self.blend_frames,
                                                                  self.influence, progress)
-        except OverlapAssistError as exc:
-            self.report({'ERROR'}, str(exc))
-            return {'CANCELLED'}
         finally:
             wm.progress_end()
         context.view_layer.update()
@@ -84,6 +80,7 @@ class OVERLAP_ASSIST_OT_fix_flight(bpy.types.Operator):
         return {'FINISHED'}
 
 
+@guarded
 class OVERLAP_ASSIST_OT_remove_flight_fix(bpy.types.Operator):
     """Delete the flight-fix layer and restore the animation exactly as it was"""
     bl_idname = "overlap_assist.remove_flight_fix"
@@ -101,11 +98,7 @@ class OVERLAP_ASSIST_OT_remove_flight_fix(bpy.types.Operator):
 
     def execute(self, context):
         obj = context.active_object
-        try:
-            flight_fix_layer.remove_fix(obj)
-        except OverlapAssistError as exc:
-            self.report({'ERROR'}, str(exc))
-            return {'CANCELLED'}
+        flight_fix_layer.remove_fix(obj)
         context.view_layer.update()
         self.report({'INFO'}, f"Removed the {flight_fix_layer.FIX_TRACK_NAME} layer from {obj.name}")
         return {'FINISHED'}
