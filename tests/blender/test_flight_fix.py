@@ -359,3 +359,26 @@ def test_batch_fix_writes_the_fixed_file_and_the_report_shows_both_arcs(jumper, 
     page = (out / "hop.report.html").read_text()
     assert "Flight arc before and after the fix" in page and "Spin in flight" in page
     assert 'data-arc="after"' in page
+
+
+def test_cli_fix_flight_follows_the_cli_rules(jumper, tmp_path):
+    """--scene choice, compression kept, file-safety refusals as one line (exit 2), nothing written."""
+    from blender_helpers import run_cli
+
+    from overlap_assist import outputs
+    jumper.users_scene[0].name = "Shot"
+    src = tmp_path / "jump.blend"
+    bpy.ops.wm.save_as_mainfile(filepath=str(src), copy=True, compress=True)
+    fixed = tmp_path / "fixed.blend"
+    proc = run_cli("fix-flight", str(src), "--out", str(fixed), "--scene", "Shot")
+    assert proc.returncode == 0, proc.stderr
+    assert "Jumper (scene Shot)" in proc.stdout and outputs.is_compressed(str(fixed))   # compressed like its input
+    for args, words in ((("--scene", "Nowhere", "--out", str(tmp_path / "a.blend")), "no scene named 'Nowhere'"),
+                        (("--out", str(tmp_path / "b.blend"), "--in-place"), "either --in-place or --out"),
+                        (("--out", str(src)), "--in-place"),
+                        (("--out", str(tmp_path / "c.blend"), "--blend-frames", "40"), "outside 0–12")):
+        proc = run_cli("fix-flight", str(src), *args)
+        lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
+        assert proc.returncode == 2 and len(lines) == 1 and words in lines[0], proc.stderr
+        assert lines[0].startswith("overlap_assist: error: ")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["fixed.blend", "jump.blend"]
