@@ -33,6 +33,25 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_INPUT, f"{PREFIX}{message} (see {self.prog} --help)\n")
 
 
+FIX_MODES = {"keep-contacts": "KEEP_CONTACTS", "keep-apex": "KEEP_APEX"}
+
+
+def add_fix_flight_parser(sub):
+    f = sub.add_parser("fix-flight", help="put the body's center of mass on the ballistic arc in every flight, "
+                                          "on its own removable NLA layer, saved to --out")
+    f.add_argument("file", help=".blend file to read")
+    f.add_argument("--out", help="where to save the fixed file (required unless --in-place)")
+    f.add_argument("--in-place", action="store_true",
+                   help="overwrite the input file (atomically; a symlink's target; not a read-only file)")
+    add_target_options(f, "default: the armature that moves")
+    add_body_options(f)
+    f.add_argument("--mode", choices=tuple(FIX_MODES), default="keep-contacts",
+                   help="keep takeoff and touchdown (the apex moves) or keep the apex (retiming is advised)")
+    f.add_argument("--blend-frames", type=float, default=3.0, help="frames to fade the correction in and out")
+    f.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
+    return f
+
+
 def build_parser():
     p = _Parser(prog="python -m overlap_assist",
                 description="Overlap Assist headless commands (figures are for animation "
@@ -67,6 +86,8 @@ def build_parser():
     add_target_options(t, "default: every armature that moves")
     t.add_argument("--jobs", type=int, default=None,
                    help="files processed at once (worker processes; default and maximum: the CPU count)")
+    t.add_argument("--fix", action="store_true", help="also fix each flight (center of mass on the ballistic arc) "
+                                                     "and write <stem>.fixed.blend beside the baked file")
     w = sub.add_parser("process", help="one file of a batch: analysis JSON, report and (with chains) a baked copy")
     w.add_argument("file", help=".blend file to read (never modified)")
     w.add_argument("--out-dir", required=True, help="folder for the outputs")
@@ -74,8 +95,10 @@ def build_parser():
     w.add_argument("--preset-file", help="chain preset applied to the file's chains")
     add_target_options(w, "default: every armature that moves")
     w.add_argument("--details-file", help=argparse.SUPPRESS)
+    w.add_argument("--fix", action="store_true", help="fix the flights first and save <stem>.fixed.blend")
     d = sub.add_parser("demo", help="build our demo character and jumps, analyze them, write the outputs")
     d.add_argument("--out", default="out/demo", help="output folder (created; existing outputs are replaced)")
+    add_fix_flight_parser(sub)
     return p
 
 
@@ -323,10 +346,14 @@ def cmd_analyze(args, io):
             with in_scene(bpy, scene):
                 apply_body_options(obj, args)
                 result, warnings = run_analysis(obj, scene)
+                if args.json:
+                    from .cli_flight import spin_json
+                    spin = spin_json(obj, scene)
             if args.json:
                 d = analysis_to_dict(result)
                 d["armature"], d["scene"] = obj.name, scene.name
                 d["warnings"] = warnings
+                d["spin"] = spin
                 io.out.write(json.dumps(d) + "\n")
             else:
                 io.out.write(f"{obj.name} (scene {scene.name}): {summary_line(result)}\n")
@@ -513,7 +540,7 @@ def cmd_batch(args, io):
         presets.load_preset_file(args.preset_file)  # refuse a bad preset before any work
     out_dir = outputs.out_folder_target(args.out)
     _, status = run_batch(args.inputs, out_dir, os.path.abspath(args.preset_file) if args.preset_file else None,
-                          jobs, io.out, scene=args.scene, armature=args.armature)
+                          jobs, io.out, scene=args.scene, armature=args.armature, fix=args.fix)
     return status
 
 
@@ -522,7 +549,9 @@ def cmd_process(args, io):
 
     Every armature that moves (or the one named) is analyzed in its scene; one report holds them all.
     Outputs: ``<stem>.analysis.json`` (``<stem>.<armature>.analysis.json`` each when there are several),
-    ``<stem>.report.html`` and, when chains were baked, ``<stem>.baked.blend``.
+    ``<stem>.report.html``, when chains were baked ``<stem>.baked.blend`` and, with ``--fix``,
+    ``<stem>.fixed.blend`` (the flight-fix layer; the baked file then holds the fix and the chains
+    baked on the corrected body).
     """
     bpy = import_bpy()
     from .blender.analyze import run_analysis, summary_line
@@ -539,10 +568,26 @@ def cmd_process(args, io):
         several = len(targets) > 1
         doc = presets.load_preset_file(args.preset_file) if args.preset_file else None
         clips, summaries, outs, baked = [], [], [], False
+        extras, fix_lines = {}, {}
+        if args.fix:   # fix every flight first: the chains below are then simulated on the corrected body
+            from .cli_flight import process_fix
+            fixed = False
+            for obj, scene in targets:
+                with in_scene(bpy, scene):
+                    extras[obj.name], fix_lines[obj.name], done = process_fix(obj, scene)
+                    fixed = fixed or done
+            if fixed:   # the fix layer alone; the baked file beside it holds the fix and the bake
+                name = args.stem + ".fixed.blend"
+                save_blend_atomic(bpy, os.path.join(out_dir, name), compress)
+                outs.append(name)
+        from .blender.flight_jobs import fix_muted
         for obj, scene in targets:
             with in_scene(bpy, scene):
-                result, warnings = run_analysis(obj, scene)
+                with fix_muted(obj):   # the analysis is of the animation as keyed
+                    result, warnings = run_analysis(obj, scene)
                 summary = summary_line(result)
+                if obj.name in fix_lines:
+                    summary += f"; {fix_lines[obj.name]}"
                 sampled = motion = None
                 keys = {}
                 if any(not c.mute for c in obj.overlap_assist.chains):
@@ -559,6 +604,7 @@ def cmd_process(args, io):
                     baked = True
             name = f"{obj.name} (scene {scene.name})" if several else args.stem
             clip = clip_dict(name, result, sampled, motion, keys)
+            clip.update(extras.get(obj.name, {}))
             clip["analysis"]["warnings"] = warnings
             clip["analysis"]["armature"], clip["analysis"]["scene"] = obj.name, scene.name
             clips.append(clip)
@@ -583,8 +629,46 @@ def _safe(name):
     return "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in name) or "armature"
 
 
+def cmd_fix_flight(args, io):
+    from .blender import flight_fix_layer, flight_jobs
+    from .core.constants import CAUTION
+    if args.in_place and args.out:
+        raise CliError("use either --in-place or --out, not both")
+    if not args.out and not args.in_place:
+        raise CliError("say where to save the result with --out OUT.blend (or --in-place to overwrite the input)")
+    if not 0 <= args.blend_frames <= 12:
+        raise CliError(f"--blend-frames {args.blend_frames} is outside 0–12")
+    outputs.check_input_file(args.file)
+    target = outputs.in_place_target(args.file) if args.in_place else outputs.out_file_target(args.out, [args.file])
+    compress = outputs.is_compressed(args.file)
+    bpy = import_bpy()
+    from .blender.rig_motion import has_motion
+    open_blend(bpy, args.file)
+    with addon_registered(bpy):
+        ((obj, scene),) = pick_targets(bpy, args, has_motion, "with motion")
+        with in_scene(bpy, scene):
+            apply_body_options(obj, args)
+            stats, fix, result, warnings = flight_jobs.apply_fix(obj, scene, FIX_MODES[args.mode], args.blend_frames)
+        saved = save_blend_atomic(bpy, target, compress)
+        summary = flight_jobs.fix_summary(obj)
+        if args.json:
+            io.out.write(json.dumps({"armature": obj.name, "scene": scene.name, "out": saved,
+                                     "layer": flight_fix_layer.FIX_TRACK_NAME, "bone": stats.bone,
+                                     "frames": stats.n_frames, "max_offset_m": round(stats.max_offset_m, 5),
+                                     "compressed": compress, **summary, "warnings": warnings,
+                                     "caution": CAUTION}) + "\n")
+        else:
+            io.out.write(f"{obj.name} (scene {scene.name}): {stats.summary()}\n")
+            for c in fix.flights:
+                io.out.write(f"  {c.advice(result.fps)}\n")
+            for w in warnings:
+                io.out.write(f"warning: {w}\n")
+            io.out.write(f"wrote {saved}\n{CAUTION}\n")
+    return 0
+
+
 COMMANDS = {"analyze": cmd_analyze, "simulate": cmd_simulate, "bake": cmd_bake, "batch": cmd_batch,
-            "process": cmd_process, "demo": cmd_demo}
+            "process": cmd_process, "demo": cmd_demo, "fix-flight": cmd_fix_flight}
 
 
 def _os_error_line(exc: OSError) -> str:

@@ -137,6 +137,9 @@ def _clip(jump, sizes, progress):
                                    "height_m": result.body_pos_m[whole, 2].tolist()},
                    "chains": report_chains,
                    "images": {f"contact sheet, {jump.title.lower()}": f"strip_{jump.name}.png"}}
+    from .blender.flight_jobs import report_extras
+    report_clip.update(report_extras(rig, scene))   # spin per flight, CoM arc before/after the fix
+    record["flight_physics"] = {k: report_clip[k] for k in ("spin", "flight_fix") if k in report_clip}
     return record, report_clip, (events, tiles)
 
 

@@ -7,9 +7,10 @@ import contextlib
 
 import bpy
 
-from . import analyze, bake_ops, chains, panels, preview, properties
+from . import analyze, bake_ops, chains, flight_fix_ops, panels, preview, properties
 
-classes = (*properties.classes, *analyze.classes, *chains.classes, *bake_ops.classes, *panels.classes)
+classes = (*properties.classes, *analyze.classes, *chains.classes, *bake_ops.classes, *flight_fix_ops.classes,
+           *panels.classes)
 
 
 def register():

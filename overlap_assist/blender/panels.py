@@ -64,6 +64,8 @@ class VIEW3D_PT_overlap_assist_body(OverlapPanelMixin, bpy.types.Panel):
         layout.prop(s, "gravity_source")
         layout.prop(s, "spline_blocked_keys")
         layout.operator("overlap_assist.analyze_motion", icon='PLAY')
+        from .flight_panel import draw_flight_tools
+        draw_flight_tools(layout, obj)
         if not s.last_summary:
             return
         summary = json.loads(s.last_summary)

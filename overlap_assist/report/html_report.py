@@ -408,6 +408,8 @@ def _clip_article(index: int, clip) -> str:
                 ("Body height and flight parabola", height_figure(clip)),
                 ("Findings", findings_section(clip)),
                 ("Chains: tip swing and keys", chain_figure(clip))]
+    from .flight_figures import flight_sections
+    sections[3:3] = flight_sections(clip)
     images = _images(clip)
     if images:
         sections.append(("Pictures", images))
