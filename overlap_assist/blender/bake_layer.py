@@ -37,8 +37,10 @@ A rotation channel that nothing animates is written absolute
 (its static pose ∘ offset, COMBINE over the identity) and its static value restored on removal.
 
 Keys: at tolerance 0 a key on every frame with Blender's automatic (AUTO_CLAMPED) handles (exact
-at every frame, Blender's own shape between frames); above 0 the reduced Bézier keys with ALIGNED
-handles as computed by ``core.key_reduce``.
+at every frame, Blender's own shape between frames); above 0 the keys of
+``core.key_reduce.reduce_rotation_keys``: each component keyed where it needs keys, fitted
+handles (ALIGNED where both sides share a slope, FREE elsewhere), no curve for a component that
+stays at the value it has without one, the rotation angle bounded at every frame.
 
 Limitation: rotation channels keyed on only some of their components, and drivers on baked
 channels (drivers run after the NLA and win), are not handled specially.
@@ -52,7 +54,7 @@ import numpy as np
 
 from ..core.rotations import compose_euler, quat_multiply
 from ..core.errors import OverlapAssistError
-from ..core.key_reduce import reduce_euler_groups, reduce_quaternion_groups
+from ..core.key_reduce import RotationTrack, reduce_rotation_keys
 from . import anim_data
 
 BAKE_TRACK_NAME = "Overlap Bake"
@@ -79,8 +81,9 @@ class BakeStats:
     keys_written: int
     """Keys written after reduction."""
     max_error_deg: float
-    """Largest difference between the written curves and the per-frame values, degrees
-    (quaternions: rotation angle; Euler: per channel), by evaluate_keys (Blender's Bézier rule)."""
+    """Largest rotation angle between the baked and the simulated bone orientation at any baked
+    frame, degrees, the written (float32) curves evaluated by Blender's Bézier rule
+    (``core.key_reduce.reduce_rotation_keys``); 0 with a key on every frame."""
     action_name: str
     """The bake action, or the user's action for ``into_action``."""
     into_action: bool
@@ -94,7 +97,7 @@ class BakeStats:
     def summary(self) -> str:
         where = "into the action" if self.into_action else f"on the {BAKE_TRACK_NAME} layer"
         return (f"Baked {self.keys_written} keys on {len(self.bones)} bones over {self.n_frames} frames {where} "
-                f"({self.reduction_percent:.0f} % fewer than per frame, max error {self.max_error_deg:.2f}°)")
+                f"({self.reduction_percent:.0f} % fewer than per frame, max rotation error {self.max_error_deg:.2f}°)")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -292,43 +295,44 @@ def sample_rotations(obj, scene, frames, names, progress=None):
 # Reduction and writing
 # ---------------------------------------------------------------------------------------------
 
-def _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad):
-    """Reduce every bone's channel values at once (one batched call per rotation kind).
-
-    Returns ({bone: curves}, max error in radians: rotation angle for quaternions, per channel for
-    Euler), the error as the reducer measured it (Blender's Bézier rule at every frame).
-    """
-    out, max_err = {}, 0.0
-    quat_names = [n for n in values_by_bone if n in quaternion_bones]
-    euler_names = [n for n in values_by_bone if n not in quaternion_bones]
-    for names, reduce in ((quat_names, reduce_quaternion_groups), (euler_names, reduce_euler_groups)):
-        if names:
-            curves, errors = reduce(frames, np.stack([values_by_bone[n] for n in names]), tol_rad, with_errors=True)
-            out.update(zip(names, curves))
-            max_err = max(max_err, float(np.max(errors)))
-    return {n: out[n] for n in values_by_bone}, max_err
+def _reduce_all(frames, tracks, tol_rad, shared_frames=False):
+    """{bone: _BoneKeys} within ``tol_rad`` of rotation angle at every frame, and the largest
+    measured angle (rad): one call of the core reducer for all bones ({bone: RotationTrack})."""
+    names = list(tracks)
+    reduced = reduce_rotation_keys(frames, [tracks[n] for n in names], tol_rad, shared_frames=shared_frames)
+    out = {}
+    for name, keys in zip(names, reduced):
+        co, lefts, rights, types = [], [], [], []
+        for ch in keys.channels:
+            if ch is None:
+                co.append(None)
+                lefts.append(None)
+                rights.append(None)
+                types.append(None)
+                continue
+            pair = np.empty((ch.n_keys, 2), dtype=np.float32)
+            pair[:, 0], pair[:, 1] = ch.frames, ch.values
+            co.append(pair)
+            lefts.append(np.ascontiguousarray(ch.handle_left, dtype=np.float32))
+            rights.append(np.ascontiguousarray(ch.handle_right, dtype=np.float32))
+            types.append(ch.handle_types())
+        out[name] = _BoneKeys(co, lefts, rights, types)
+    return out, max((k.max_error_rad for k in reduced), default=0.0)
 
 
 @dataclass(frozen=True, slots=True)
 class _BoneKeys:
-    """Keys for one bone's rotation channel, components first; handles None = Blender's automatic."""
+    """Keys for one bone's rotation channel, one entry per component (None: no curve is written);
+    handles None = Blender's automatic; handle_types: per-key type names or None (AUTO_CLAMPED)."""
 
-    co: np.ndarray            # (c, n, 2) float32 (frame, value)
-    handle_left: object       # (c, n, 2) float32 or None
+    co: object                # sequence of (n_i, 2) float32 (frame, value) or None
+    handle_left: object       # sequence of (n_i, 2) float32, or None for automatic handles
     handle_right: object
+    handle_types: object = None
 
     @property
     def n_keys(self):
-        return int(self.co.shape[0] * self.co.shape[1])
-
-
-def _keys_from_curves(curves):
-    """_BoneKeys of reduced curves sharing their key frames (ALIGNED handles as written)."""
-    co = np.empty((len(curves), curves[0].n_keys_after, 2), dtype=np.float32)
-    co[:, :, 0] = curves[0].key_frames
-    co[:, :, 1] = [c.key_values for c in curves]
-    return _BoneKeys(co, np.array([c.handle_left for c in curves], dtype=np.float32),
-                     np.array([c.handle_right for c in curves], dtype=np.float32))
+        return int(sum(c.shape[0] for c in self.co if c is not None))
 
 
 def _keys_every_frame(frames, values_by_bone):
@@ -340,7 +344,7 @@ def _keys_every_frame(frames, values_by_bone):
         co = np.empty((len(names), n_components, len(frames), 2), dtype=np.float32)
         co[:, :, :, 0] = frames
         co[:, :, :, 1] = np.stack([values_by_bone[n] for n in names]).transpose(0, 2, 1)
-        out.update((n, _BoneKeys(co[b], None, None)) for b, n in enumerate(names))
+        out.update((n, _BoneKeys(list(co[b]), None, None)) for b, n in enumerate(names))
     return {n: out[n] for n in values_by_bone}
 
 
@@ -359,28 +363,33 @@ def _merge_outside(fc, keys):
 def _merge_into_action(bag, pb, keys):
     """Write one bone's keys into an existing action, keeping its keys outside the new range."""
     path = pb.path_from_id(_rotation_property(pb))
-    for index in range(keys.co.shape[0]):
+    for index, co in enumerate(keys.co):
+        if co is None:
+            continue
         fc = anim_data.ensure_fcurve(bag, path, index, pb.name)
-        co = keys.co[index]
         if keys.handle_left is None:
             new = anim_data.bezier_keys(co[:, 0], co[:, 1], co, co, "AUTO_CLAMPED")
         else:
             new = anim_data.bezier_keys(co[:, 0], co[:, 1], keys.handle_left[index], keys.handle_right[index],
-                                        "ALIGNED")
+                                        keys.handle_types[index])
         anim_data.write_keyframes(fc, _merge_outside(fc, new))
     return keys.n_keys
 
 
 def _write_new(bag, pose, keys_by_bone):
     """Write every bone's keys into F-curves created here (the bake action is new and empty)."""
-    channels, cos, lefts, rights = [], [], [], []
+    channels, cos, lefts, rights, types = [], [], [], [], []
     for name, keys in keys_by_bone.items():
         path = pose[name].path_from_id(_rotation_property(pose[name]))
-        channels.extend((path, index, name) for index in range(keys.co.shape[0]))
-        cos.extend(keys.co)
-        lefts.extend(keys.handle_left if keys.handle_left is not None else [None] * keys.co.shape[0])
-        rights.extend(keys.handle_right if keys.handle_right is not None else [None] * keys.co.shape[0])
-    anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), cos, lefts, rights, 'ALIGNED')
+        for index, co in enumerate(keys.co):
+            if co is None:   # the component needs no curve
+                continue
+            channels.append((path, index, name))
+            cos.append(co)
+            lefts.append(keys.handle_left[index] if keys.handle_left is not None else None)
+            rights.append(keys.handle_right[index] if keys.handle_right is not None else None)
+            types.append(keys.handle_types[index] if keys.handle_types is not None else None)
+    anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), cos, lefts, rights, types)
     return sum(k.n_keys for k in keys_by_bone.values())
 
 
@@ -505,7 +514,7 @@ def remove_bake(obj) -> bool:
 # ---------------------------------------------------------------------------------------------
 
 def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, influence=1.0,
-                 progress=None, scene=None) -> BakeStats:
+                 progress=None, scene=None, shared_frames=False) -> BakeStats:
     """Bake per-frame rotation offsets of bones onto the "Overlap Bake" layer (or into the action).
 
     Parameters
@@ -514,11 +523,14 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     frames : array_like, shape (n,), whole frame numbers, increasing, n >= 2
     offsets : {bone name: array_like, shape (n, 4)}, unit quaternions (w, x, y, z) to right-multiply
         onto each bone's animated basis rotation (final = animated ∘ offset).
-    tolerance_deg : float, largest error of the written curves at every frame (0 keeps every frame)
+    tolerance_deg : float, largest rotation angle between the baked and the simulated orientation
+        at every frame, as Blender evaluates the written curves (0 keeps every frame)
     into_action : bool, write animated ∘ offset into the user's action instead of a layer
     influence : float, 0..1, the layer's influence (ignored with ``into_action``)
     progress : callable(fraction 0..1) or None
     scene : the scene whose frames are sampled (default: the context scene)
+    shared_frames : bool, key all components of a bone on the same frames (more keys; default
+        False: each component gets only the keys it needs)
 
     Raises
     ------
@@ -547,6 +559,7 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
             "use_nla": int(obj.animation_data.use_nla) if obj.animation_data else 1, "pushed": 0}
     static = {}
     values_by_bone, quaternion_bones, euler_jobs, layered_quats = {}, set(), {}, []
+    tracks = {}   # bone -> (basis the layer adds to or None, value of a component without a curve or None)
     for name, q_off in offsets.items():
         pb = pose[name]
         prop = _rotation_property(pb)
@@ -557,11 +570,14 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
             quaternion_bones.add(name)
             values_by_bone[name] = None   # filled for all such bones at once below
             layered_quats.append(name)
+            tracks[name] = (None, np.array([1.0, 0.0, 0.0, 0.0]))   # COMBINE: no curves = no offset
             continue
         if name in sampled:
             basis = sampled[name]
         else:
             basis = np.tile(np.array(getattr(pb, prop), dtype=np.float64), (len(frames), 1))
+        # Absolute: a component without a curve keeps its static value (into the action: always a curve).
+        tracks[name] = (None, None if into_action else np.array(getattr(pb, prop), dtype=np.float64))
         if pb.rotation_mode == 'QUATERNION':
             quaternion_bones.add(name)
             values_by_bone[name] = _continuous(quat_multiply(basis, q_off), basis[0])
@@ -577,14 +593,17 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
         layered = composed - bases
         for b, (name, _basis, _q, absolute) in enumerate(jobs):
             values_by_bone[name] = composed[b] if absolute else layered[b]
+            if not absolute:   # COMBINE adds the curves to the animated angles; no curve adds 0
+                tracks[name] = (bases[b], np.zeros(3))
     report(0.7)
     n_channels = sum(values.shape[1] for values in values_by_bone.values())
     if tol_rad == 0.0:   # a key on every frame, exact; Blender's automatic handles between frames
         keys_by_bone = _keys_every_frame(frames, values_by_bone)
         max_err = 0.0
     else:
-        per_bone, max_err = _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad)
-        keys_by_bone = {n: _keys_from_curves(curves) for n, curves in per_bone.items()}
+        keys_by_bone, max_err = _reduce_all(frames, {
+            n: RotationTrack(v, 'QUATERNION' if n in quaternion_bones else pose[n].rotation_mode, *tracks[n])
+            for n, v in values_by_bone.items()}, tol_rad, shared_frames)
     report(0.9)
     keys_before = n_channels * len(frames)
     if into_action:
