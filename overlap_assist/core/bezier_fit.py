@@ -19,8 +19,7 @@ exactly (no reparameterisation as in Schneider 1990, whose least-squares step th
 handle x extents fixed): the curve is the cubic Hermite polynomial in the frame and the two end
 slopes enter linearly, so the least-squares slopes over the segment's interior frames are one
 2 x 2 solve. A small ridge term towards the data's own slopes (three-point finite differences,
-Fornberg 1988) keeps segments with one or two interior frames well posed. Both candidates (fitted
-and data slopes) are evaluated; the one with the smaller largest error is kept.
+Fornberg 1988) keeps segments with one or two interior frames well posed.
 
 References
 ----------
@@ -62,20 +61,33 @@ def evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame) -> np.ndarray:
     c = 3.0 * p1
     b = 3.0 * p2 - 6.0 * p1
     a = p3 - 3.0 * p2 + 3.0 * p1
+    a, b, c, u, p3 = np.broadcast_arrays(a, b, c, u, p3)
     t = np.clip(u / p3, 0.0, 1.0)
     lo = np.zeros_like(t)
     hi = np.ones_like(t)
-    tol = 1e-14 * np.abs(p3)
+    tol = 4e-16 * (np.abs(p3) + np.abs(u)) + 1e-300
+    active = np.arange(t.shape[0]) if t.ndim == 1 else None
+    if active is None:   # scalars or n-d: one pass over everything
+        t, lo, hi, a, b, c, u, tol = (np.ravel(v).copy() for v in (t, lo, hi, a, b, c, u, tol))
+        active = np.arange(t.shape[0])
+    ta, la, ha, aa, ba, ca, ua, tola = t, lo, hi, a, b, c, u, tol
     for _ in range(60):
-        f = ((a * t + b) * t + c) * t - u
-        if not np.any(np.abs(f) > tol):
+        f = ((aa * ta + ba) * ta + ca) * ta - ua
+        open_ = np.abs(f) > tola
+        if not open_.any():
             break
-        hi = np.where(f > 0.0, t, hi)
-        lo = np.where(f > 0.0, lo, t)
-        d = (3.0 * a * t + 2.0 * b) * t + c
+        if not open_.all():   # keep iterating only where not yet converged
+            t[active] = ta
+            active = active[open_]
+            ta, la, ha, aa, ba, ca, ua, tola, f = (v[open_] for v in (ta, la, ha, aa, ba, ca, ua, tola, f))
+        ha = np.where(f > 0.0, ta, ha)
+        la = np.where(f > 0.0, la, ta)
+        d = (3.0 * aa * ta + 2.0 * ba) * ta + ca
         with np.errstate(divide="ignore", invalid="ignore"):
-            step = t - f / d
-        t = np.where((d > 0.0) & (step > lo) & (step < hi), step, 0.5 * (lo + hi))
+            step = ta - f / d
+        ta = np.where((d > 0.0) & (step > la) & (step < ha), step, 0.5 * (la + ha))
+    t[active] = ta
+    t = t.reshape(np.shape(frame - x0)) if np.ndim(frame - x0) != 1 else t
     om = 1.0 - t
     return (y0 * om * om * om + 3.0 * hy0 * t * om * om + 3.0 * hy1 * t * t * om + y1 * t * t * t)
 
@@ -153,7 +165,7 @@ def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
 # Fitting: recursive splitting with least-squares handle heights
 # ---------------------------------------------------------------------------------------------
 
-_CHUNK_FRAMES = 1 << 15
+_CHUNK_FRAMES = 1 << 17
 """Interior frames evaluated per numpy pass: bounds the temporaries whatever the clip length."""
 
 _RIDGE = 1e-3
@@ -206,15 +218,11 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None)
         q1, q2 = r1 + mu * a_d, r2 + mu * b_d
         a_f = (d22 * q1 - s12 * q2) / det
         b_f = (d11 * q2 - s12 * q1) / det
-        ratio_f = np.max(np.abs(r - a_f[:, sid] * w10 - b_f[:, sid] * w11) / allowed, axis=0)
-        ratio_d = np.max(np.abs(r - a_d[:, sid] * w10 - b_d[:, sid] * w11) / allowed, axis=0)
-        max_f = np.maximum.reduceat(ratio_f, starts)
-        max_d = np.maximum.reduceat(ratio_d, starts)
-        use_d = max_d < max_f
-        a = np.where(use_d, a_d, a_f)
-        b = np.where(use_d, b_d, b_f)
-        ratio = np.where(use_d[sid], ratio_d, ratio_f)
-        seg_max = np.where(use_d, max_d, max_f)
+        e = np.abs(r - a_f[:, sid] * w10 - b_f[:, sid] * w11)
+        e /= allowed
+        ratio = e[0] if e.shape[0] == 1 else np.max(e, axis=0)
+        seg_max = np.maximum.reduceat(ratio, starts)
+        a, b = a_f, b_f
     else:
         a, b = h * slopes[0], h * slopes[1]
         ratio = np.max(np.abs(r - a[:, sid] * w10 - b[:, sid] * w11) / allowed, axis=0)
@@ -245,7 +253,7 @@ def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
     return seg_max, worst, out, inn
 
 
-def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True):
+def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges=None):
     """Key frames and fitted end slopes of every segment, for groups of channels sharing their keys.
 
     Parameters
@@ -253,6 +261,8 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True):
     frames : (n_frames,) float64, increasing
     flat_values : (c, n_groups * n_frames), group-major samples (c channels share a group's keys)
     budget : (c, n_groups * n_frames), largest allowed |curve - sample| at every frame (> 0)
+    ranges : optional (g, lo, hi) int arrays: fit only these frame ranges (a key stays on both
+        ends of each); default: every group from its first to its last frame
     align : bool
         Afterwards, give a key one slope on both sides (ALIGNED handles) wherever both neighbouring
         segments then stay within budget (two passes, every other key at a time).
@@ -267,9 +277,12 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True):
     c = flat_values.shape[0]
     if n_frames < 2:
         raise ValueError("fit_keys needs at least two frames")
-    pend_g = np.arange(n_groups, dtype=np.intp)
-    pend_lo = np.zeros(n_groups, dtype=np.intp)
-    pend_hi = np.full(n_groups, n_frames - 1, dtype=np.intp)
+    if ranges is None:
+        pend_g = np.arange(n_groups, dtype=np.intp)
+        pend_lo = np.zeros(n_groups, dtype=np.intp)
+        pend_hi = np.full(n_groups, n_frames - 1, dtype=np.intp)
+    else:
+        pend_g, pend_lo, pend_hi = (np.asarray(r, dtype=np.intp) for r in ranges)
     acc = []
     while pend_g.size:
         short = pend_hi - pend_lo < 2
@@ -303,7 +316,7 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True):
 
 def _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_out, slope_in):
     """In place: one slope on both sides of a key where both neighbouring segments allow it."""
-    junction = np.flatnonzero(seg_g[1:] == seg_g[:-1])   # between segment j and j + 1
+    junction = np.flatnonzero((seg_g[1:] == seg_g[:-1]) & (seg_lo[1:] == seg_hi[:-1]))   # segment j | j + 1
     if not junction.size:
         return
     for parity in (0, 1):

@@ -781,47 +781,100 @@ def _every_frame_keys(frames, track):
                  for i in range(track.values.shape[1]))
 
 
-def _fit_tracks(frames, tracks, budgets, shared_frames):
-    """Keys of every track from its per-frame budgets (n, c): flat components first, then fitting."""
+def _keys_from_segments(frames, values, lo, hi, s_out, s_in) -> ChannelKeys:
+    """ChannelKeys of consecutive segments (sorted, lo[k + 1] == hi[k]) of one component."""
+    idx = np.concatenate((lo, hi[-1:]))
+    slope_out = np.concatenate((s_out, s_in[-1:]))
+    slope_in = np.concatenate((s_out[:1], s_in))
+    return _channel_keys(frames, values, idx, slope_in, slope_out)
+
+
+def _fit_tracks(frames, tracks, budgets, shared_frames, plans=None, bad_frames=None):
+    """Keys of every track from its per-frame budgets (n, c).
+
+    ``plans`` (per track, per component: None = no curve, a float = one key, or (lo, hi, slope_out,
+    slope_in) segments) and ``bad_frames`` (per track) come from a previous round: components
+    with segments then refit only their segments holding bad frames. Returns (keys, plans).
+    """
     from .bezier_fit import fit_keys
     n = frames.shape[0]
-    result = [[None] * t.values.shape[1] for t in tracks]
-    jobs = []   # (track index, [channel indices]) fitted as one group
+    new_plans = []
+    jobs = []   # (track index, [components], [(lo, hi) ranges]) fitted as one group per range set
     for ti, (track, budget) in enumerate(zip(tracks, budgets)):
         v = track.values
+        c = v.shape[1]
+        old = plans[ti] if plans is not None else [None] * c
+        plan = [None] * c
+        partial = plans is not None and not shared_frames
         b_min = np.min(budget, axis=0)
-        near_rest = (np.max(np.abs(v - track.rest), axis=0) <= b_min) if track.rest is not None else np.zeros(v.shape[1], bool)
+        near_rest = (np.max(np.abs(v - track.rest), axis=0) <= b_min) if track.rest is not None else np.zeros(c, bool)
         if track.mode == "QUATERNION" and not near_rest.all():
             near_rest[:] = False          # a quaternion keeps all four curves or none
         flat = (np.ptp(v, axis=0) <= 2.0 * b_min) & ~near_rest
-        for ci in range(v.shape[1]):
-            if flat[ci]:
-                result[ti][ci] = _constant_keys(frames[0], 0.5 * (np.max(v[:, ci]) + np.min(v[:, ci])))
-        if shared_frames:
-            keep = [ci for ci in range(v.shape[1]) if not near_rest[ci]]
-            if keep and not flat[keep].all():
-                jobs.append((ti, keep))
-        else:
-            jobs.extend((ti, [ci]) for ci in range(v.shape[1]) if not (near_rest[ci] or flat[ci]))
+        fit = []
+        for ci in range(c):
+            if partial and isinstance(old[ci], tuple):
+                lo, hi, s_out, s_in = old[ci]
+                key_idx = np.concatenate((lo, hi[-1:]))
+                seg = np.unique(np.clip(np.searchsorted(key_idx, bad_frames[ti], side="right") - 1, 0, lo.shape[0] - 1))
+                keep = np.ones(lo.shape[0], bool)
+                keep[seg] = False
+                plan[ci] = (lo[keep], hi[keep], s_out[keep], s_in[keep])
+                jobs.append((ti, [ci], list(zip(lo[seg], hi[seg]))))
+            elif near_rest[ci]:
+                plan[ci] = None
+            elif flat[ci]:
+                plan[ci] = float(0.5 * (np.max(v[:, ci]) + np.min(v[:, ci])))
+            else:
+                fit.append(ci)
+        if shared_frames and fit:
+            fit = [ci for ci in range(c) if not near_rest[ci]]
+        if shared_frames and fit:
+            jobs.append((ti, fit, [(0, n - 1)]))
+        elif fit:
+            jobs.extend((ti, [ci], [(0, n - 1)]) for ci in fit)
+        new_plans.append(plan)
     by_width = {}
     for job in jobs:
         by_width.setdefault(len(job[1]), []).append(job)
     for width, group in by_width.items():
         flat_values = np.empty((width, len(group) * n))
         flat_budget = np.empty((width, len(group) * n), dtype=np.float32)
-        for g, (ti, chans) in enumerate(group):
+        rg, rlo, rhi = [], [], []
+        for g, (ti, chans, ranges) in enumerate(group):
             flat_values[:, g * n:(g + 1) * n] = tracks[ti].values[:, chans].T
             flat_budget[:, g * n:(g + 1) * n] = budgets[ti][:, chans].T
-        seg_g, seg_lo, seg_hi, s_out, s_in = fit_keys(frames, flat_values, flat_budget, len(group), n)
+            for lo, hi in ranges:
+                rg.append(g)
+                rlo.append(lo)
+                rhi.append(hi)
+        seg_g, seg_lo, seg_hi, s_out, s_in = fit_keys(frames, flat_values, flat_budget, len(group), n,
+                                                      ranges=(rg, rlo, rhi))
         bounds = np.searchsorted(seg_g, np.arange(len(group) + 1))
-        for g, (ti, chans) in enumerate(group):
+        for g, (ti, chans, _ranges) in enumerate(group):
             a, b = bounds[g], bounds[g + 1]
-            idx = np.concatenate((seg_lo[a:b], seg_hi[b - 1:b]))
             for w, ci in enumerate(chans):
-                slope_out = np.concatenate((s_out[w, a:b], s_in[w, b - 1:b]))
-                slope_in = np.concatenate((s_out[w, a:a + 1], s_in[w, a:b]))
-                result[ti][ci] = _channel_keys(frames, tracks[ti].values[:, ci], idx, slope_in, slope_out)
-    return [tuple(r) for r in result]
+                lo, hi, so, si = seg_lo[a:b], seg_hi[a:b], s_out[w, a:b], s_in[w, a:b]
+                kept = new_plans[ti][ci]
+                if isinstance(kept, tuple):   # merge with the segments kept from the last round
+                    lo, hi = np.concatenate((kept[0], lo)), np.concatenate((kept[1], hi))
+                    so, si = np.concatenate((kept[2], so)), np.concatenate((kept[3], si))
+                    order = np.argsort(lo, kind="stable")
+                    lo, hi, so, si = lo[order], hi[order], so[order], si[order]
+                new_plans[ti][ci] = (lo, hi, so, si)
+    keys = []
+    for ti, plan in enumerate(new_plans):
+        v = tracks[ti].values
+        row = []
+        for ci, p in enumerate(plan):
+            if p is None:
+                row.append(None)
+            elif isinstance(p, tuple):
+                row.append(_keys_from_segments(frames, v[:, ci], *p))
+            else:
+                row.append(_constant_keys(frames[0], p))
+        keys.append(tuple(row))
+    return keys, new_plans
 
 
 def _shrink_budget(frames, budget, keys, bad_frames, factor):
@@ -879,10 +932,16 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
                for t in tracks]
     out = [None] * len(tracks)
     todo = list(range(len(tracks)))
-    for _round in range(_MAX_ROUNDS):
+    plans = [None] * len(tracks)
+    bad_frames = [None] * len(tracks)
+    for round_ in range(_MAX_ROUNDS):
         if not todo:
             break
-        fitted = _fit_tracks(frames, [tracks[i] for i in todo], [budgets[i] for i in todo], shared_frames)
+        fitted, new_plans = _fit_tracks(frames, [tracks[i] for i in todo], [budgets[i] for i in todo], shared_frames,
+                                        None if round_ == 0 else [plans[i] for i in todo],
+                                        None if round_ == 0 else [bad_frames[i] for i in todo])
+        for i, plan in zip(todo, new_plans):
+            plans[i] = plan
         again = []
         measured = _tracks_errors(frames, [tracks[i] for i in todo], fitted)
         for i, keys, (err, margin) in zip(todo, fitted, measured):
@@ -894,6 +953,7 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
             bad = np.flatnonzero(err > limit)
             factor = float(np.clip(0.9 * limit / worst, _SHRINK_MIN, _SHRINK_MAX))
             _shrink_budget(frames, budgets[i], keys, bad, factor)
+            bad_frames[i] = bad
             again.append(i)
         todo = again
     for i in todo:   # still over after the last round: a key on every frame
