@@ -165,7 +165,7 @@ def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
 # Fitting: recursive splitting with least-squares handle heights
 # ---------------------------------------------------------------------------------------------
 
-_CHUNK_FRAMES = 1 << 17
+_CHUNK_FRAMES = 1 << 16
 """Interior frames evaluated per numpy pass: bounds the temporaries whatever the clip length."""
 
 _RIDGE = 1e-3

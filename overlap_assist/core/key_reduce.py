@@ -635,7 +635,7 @@ _SHRINK_MIN, _SHRINK_MAX = 0.3, 0.8
 # angle moves by at most twice the sum of the component changes.
 _F32_MARGIN_REL = 2.0**-20
 
-_EVAL_CHUNK = 1 << 18   # channel-frames evaluated per pass when checking
+_EVAL_CHUNK = 1 << 16   # channel-frames evaluated per pass when checking (bounds the temporaries)
 
 
 @dataclass(frozen=True, slots=True)
@@ -735,7 +735,16 @@ def _angle_between(qa, qb):
 
 def _tracks_errors(frames, tracks, keys_of_tracks):
     """Per track: (rotation angle per frame between the evaluated curves and the targets, float32
-    allowance in rad for Blender's own arithmetic). All curves are evaluated in a few passes."""
+    allowance in rad for Blender's own arithmetic). Tracks are evaluated in batches of about
+    ``_EVAL_CHUNK`` channel-frames."""
+    per_batch = max(1, _EVAL_CHUNK // (4 * frames.shape[0]))
+    out = []
+    for b in range(0, len(tracks), per_batch):
+        out.extend(_batch_errors(frames, tracks[b:b + per_batch], keys_of_tracks[b:b + per_batch]))
+    return out
+
+
+def _batch_errors(frames, tracks, keys_of_tracks):
     from .rotations import euler_to_quat
     flat_keys, flat_rest = [], []
     for track, keys in zip(tracks, keys_of_tracks):
@@ -927,8 +936,9 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
         checked.append(RotationTrack(v, t.mode, basis, rest))
     tracks = checked
     n = frames.shape[0]
-    budgets = [np.full((n, t.values.shape[1]),
-                       _BUDGET_SHARE["QUATERNION" if t.mode == "QUATERNION" else "EULER"] * tolerance_rad)
+    budgets = [np.full((n, t.values.shape[1]),   # float32: half the memory; only compared against
+                       _BUDGET_SHARE["QUATERNION" if t.mode == "QUATERNION" else "EULER"] * tolerance_rad,
+                       dtype=np.float32)
                for t in tracks]
     out = [None] * len(tracks)
     todo = list(range(len(tracks)))
