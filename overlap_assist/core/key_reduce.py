@@ -746,37 +746,45 @@ def _tracks_errors(frames, tracks, keys_of_tracks):
 
 def _batch_errors(frames, tracks, keys_of_tracks):
     from .rotations import euler_to_quat
-    flat_keys, flat_rest = [], []
+    flat_keys, flat_rest, first_row = [], [], []
     for track, keys in zip(tracks, keys_of_tracks):
-        c = track.values.shape[1]
+        first_row.append(len(flat_keys))
         flat_keys.extend(keys)
-        flat_rest.extend(track.rest if track.rest is not None else np.zeros(c))
-    evaluated_all = _evaluate_channel_set(frames, flat_keys, flat_rest)
-    out, row = [], 0
-    for track, keys in zip(tracks, keys_of_tracks):
-        c = track.values.shape[1]
-        evaluated = evaluated_all[row:row + c]
-        row += c
-        target = track.values.T
-        scale = 0.0
-        for i, k in enumerate(keys):
-            top = np.max(np.abs(evaluated[i]))
-            if k is not None:
-                top += 3.0 * max(np.max(np.abs(k.handle_left[:, 1] - k.values)),
-                                 np.max(np.abs(k.handle_right[:, 1] - k.values)))
-            if track.basis is not None:
-                top += np.max(np.abs(track.basis[:, i]))
-            scale += 1.0 + top
-        margin = 2.0 * _F32_MARGIN_REL * scale
-        if track.mode == "QUATERNION":
-            out.append((_angle_between(evaluated, target), margin))
-            continue
-        if track.basis is not None:
-            evaluated = evaluated + track.basis.T
-            target = target + track.basis.T
-        qe = euler_to_quat(evaluated.T, track.mode).T
-        qt = euler_to_quat(target.T, track.mode).T
-        out.append((_angle_between(qe, qt), margin))
+        flat_rest.extend(track.rest if track.rest is not None else np.zeros(track.values.shape[1]))
+    evaluated_all = _evaluate_channel_set(frames, flat_keys, flat_rest)      # (m, n)
+    # Float32 allowance per component: largest value, 3 x largest handle height, largest basis angle.
+    top = np.max(np.abs(evaluated_all), axis=1)
+    live = [i for i, k in enumerate(flat_keys) if k is not None]
+    if live:
+        heights = np.concatenate([np.maximum(np.abs(flat_keys[i].handle_left[:, 1] - flat_keys[i].values),
+                                             np.abs(flat_keys[i].handle_right[:, 1] - flat_keys[i].values))
+                                  for i in live])
+        counts = np.array([flat_keys[i].n_keys for i in live])
+        top[live] += 3.0 * np.maximum.reduceat(heights, np.concatenate(([0], np.cumsum(counts)[:-1])))
+    out = [None] * len(tracks)
+    by_mode = {}
+    for t, track in enumerate(tracks):
+        by_mode.setdefault(track.mode, []).append(t)
+    n = frames.shape[0]
+    for mode, members in by_mode.items():
+        c = 4 if mode == "QUATERNION" else 3
+        rows = np.concatenate([np.arange(first_row[t], first_row[t] + c) for t in members])
+        evaluated = evaluated_all[rows].reshape(len(members), c, n)
+        target = np.stack([tracks[t].values.T for t in members])                # (T, c, n)
+        scale = (1.0 + top[rows]).reshape(len(members), c)
+        if mode != "QUATERNION":
+            basis = np.stack([tracks[t].basis.T if tracks[t].basis is not None else np.zeros((c, n))
+                              for t in members])
+            scale = scale + np.max(np.abs(basis), axis=2)
+            evaluated = evaluated + basis
+            target = target + basis
+            evaluated = euler_to_quat(evaluated.transpose(0, 2, 1), mode).transpose(0, 2, 1)
+            target = euler_to_quat(target.transpose(0, 2, 1), mode).transpose(0, 2, 1)
+        angles = _angle_between(evaluated.transpose(1, 0, 2).reshape(4, -1),
+                                target.transpose(1, 0, 2).reshape(4, -1)).reshape(len(members), n)
+        margins = 2.0 * _F32_MARGIN_REL * np.sum(scale, axis=1)
+        for j, t in enumerate(members):
+            out[t] = (angles[j], float(margins[j]))
     return out
 
 
