@@ -6,6 +6,13 @@ that is kicked by four landings and rings down as a damped oscillation (0.5-3 Hz
 the data, split at the largest error) written as plain Python loops, one frame at a time, so the
 ratio shows what the batched numpy formulation buys; both must produce the same keys.
 
+Second part, the bake's reducer (``reduce_rotation_keys``, bounded by the true rotation angle):
+Euler bones of 48 chains x 8 bones on a COMBINE layer (3 damped ring-down curves per bone),
+250 / 1000 / 4000 frames: time per bone-frame (linear time shows as a flat column) and peak
+memory measured with tracemalloc relative to the input values (the (frames, 3) float64 arrays);
+and the same 250-frame motion at frames 1-250 and 20001-20250 (keys must not depend on it), with
+the old shared-frame reducer's counts beside it.
+
 Run:  python bench/bench_key_reduce.py
 """
 from __future__ import annotations
@@ -16,12 +23,16 @@ import platform
 import statistics
 import sys
 import time
+import tracemalloc
 
 import numpy as np
 
 sys.path.insert(0, str(pathlib.Path(__file__).resolve().parents[1]))
 from overlap_assist.core.key_reduce import (  # noqa: E402
     FLOAT32_MARGIN_REL,
+    RotationTrack,
+    reduce_euler_groups,
+    reduce_rotation_keys,
     reduce_curves,
     reduce_quaternion_curves,
 )
@@ -112,6 +123,45 @@ def main() -> None:
     print(f"  max error                  {max_err_deg:.4f} deg")
     print(f"  reduce_quaternion_curves, {N_CURVES // 4} bones x {N_FRAMES} frames (4 curves each), "
           f"median of {RUNS}: {1000 * t_quat:.1f} ms, {qcurves[0][0].n_keys_after} shared keys on bone 0")
+    rotation_keys()
+
+
+N_ROT_BONES = 48 * 8
+
+
+def euler_tracks(n_bones, n_frames, seed=1):
+    values = secondary_motion(3 * n_bones, n_frames, seed).reshape(n_bones, 3, n_frames).transpose(0, 2, 1)
+    zeros, rest = np.zeros((n_frames, 3)), np.zeros(3)
+    return [RotationTrack(np.ascontiguousarray(v), "XYZ", zeros, rest) for v in values]
+
+
+def rotation_keys() -> None:
+    tol_rad = np.deg2rad(TOLERANCE_DEG)
+    print(f"reduce_rotation_keys, {N_ROT_BONES} Euler bones (48 chains x 8), tolerance {TOLERANCE_DEG} deg of rotation")
+    print("  frames   time s   us/bone-frame   keys (% of per frame)   peak MiB   peak / input")
+    for n_frames in (250, 1000, 4000):
+        frames = np.arange(1.0, n_frames + 1)
+        tracks = euler_tracks(N_ROT_BONES, n_frames)
+        input_bytes = sum(t.values.nbytes for t in tracks)
+        t0 = time.perf_counter()
+        result = reduce_rotation_keys(frames, tracks, tol_rad)
+        seconds = time.perf_counter() - t0
+        tracemalloc.start()
+        reduce_rotation_keys(frames, tracks, tol_rad)
+        _now, peak = tracemalloc.get_traced_memory()
+        tracemalloc.stop()
+        keys = sum(r.n_keys for r in result)
+        print(f"  {n_frames:6d} {seconds:8.2f} {1e6 * seconds / (N_ROT_BONES * n_frames):12.2f} "
+              f"{keys:14d} ({100.0 * keys / (3 * N_ROT_BONES * n_frames):4.1f} %) {peak / 2**20:12.1f} "
+              f"{peak / input_bytes:10.2f}")
+    tracks = euler_tracks(64, 250, seed=2)
+    stacked = np.stack([t.values for t in tracks])
+    print("  same motion, 64 bones x 250 frames: first frame   new keys   old (per-channel, shared frames) keys")
+    for first in (1.0, 3751.0, 20001.0):
+        frames = np.arange(first, first + 250)
+        new = sum(r.n_keys for r in reduce_rotation_keys(frames, tracks, tol_rad))
+        old = sum(c.n_keys_after for g in reduce_euler_groups(frames, stacked, tol_rad) for c in g)
+        print(f"  {first:34.0f} {new:10d} {old:10d}")
 
 
 if __name__ == "__main__":

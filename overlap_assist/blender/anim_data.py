@@ -161,17 +161,18 @@ def write_keyframes(fc, keys):
 
 
 def bezier_keys(key_frames, key_values, handle_left, handle_right, handle_type="ALIGNED"):
-    """{attribute: array} for Bézier keys with explicit handles of one type (for write_keyframes)."""
+    """{attribute: array} for Bézier keys with explicit handles (for write_keyframes); handle_type
+    is one type name for all keys or a sequence of names, one per key (both sides)."""
     n = len(key_frames)
     kp = bpy.types.Keyframe
-    handle = _enum_value(kp, "handle_left_type", handle_type)
+    handle = _handle_type_values(handle_type, n)
     return {
         "co": np.stack((key_frames, key_values), axis=1),
         "handle_left": np.asarray(handle_left),
         "handle_right": np.asarray(handle_right),
         "interpolation": np.full(n, _enum_value(kp, "interpolation", "BEZIER")),
-        "handle_left_type": np.full(n, handle),
-        "handle_right_type": np.full(n, handle),
+        "handle_left_type": handle,
+        "handle_right_type": handle.copy(),
     }
 
 
@@ -204,13 +205,26 @@ def new_fcurves(bag, channels):
 _BEZIER = None
 
 
+def _handle_type_values(handle_type, n):
+    """(n,) int32 enum values of a handle type name, or of one name per key."""
+    if isinstance(handle_type, str):
+        return np.full(n, _enum_value(bpy.types.Keyframe, "handle_left_type", handle_type), dtype=np.int32)
+    names = np.asarray(handle_type)
+    out = np.empty(n, dtype=np.int32)
+    for name in np.unique(names):
+        out[names == name] = _enum_value(bpy.types.Keyframe, "handle_left_type", str(name))
+    return out
+
+
 def write_bezier_curves(fcurves, cos, handles_left=None, handles_right=None, handle_type='ALIGNED'):
     """Add Bézier keys to F-curves that have none, in as few bulk calls as possible.
 
     ``cos[i]``, ``handles_left[i]``, ``handles_right[i]``: float32 C-contiguous arrays (n_i, 2) of
     (frame, value) for ``fcurves[i]``. A curve without handles (``handles_left`` None, or its
     entry None) keeps Blender's automatic (AUTO_CLAMPED) handles, computed by ``fc.update()``;
-    with them both handle types are set to ``handle_type`` and kept as written. Interpolation and
+    with them both handle types are set to ``handle_type`` and kept as written: one type name for
+    all curves, or a sequence with one entry per curve, each a name or an (n_i,) sequence of names
+    (fitted handles: 'ALIGNED' where both sides share a slope, 'FREE' elsewhere). Interpolation and
     handle types are written only where the defaults of new keys (read once, on the first curve)
     differ.
     """
@@ -219,6 +233,7 @@ def write_bezier_curves(fcurves, cos, handles_left=None, handles_right=None, han
         kp_type = bpy.types.Keyframe
         _BEZIER = {"BEZIER": _enum_value(kp_type, "interpolation", "BEZIER"),
                    **{t: _enum_value(kp_type, "handle_left_type", t) for t in ("ALIGNED", "FREE", "AUTO_CLAMPED")}}
+    per_curve = not isinstance(handle_type, str)
     defaults = None
     for i, fc in enumerate(fcurves):
         co = cos[i]
@@ -230,11 +245,17 @@ def write_bezier_curves(fcurves, cos, handles_left=None, handles_right=None, han
         if defaults is None:
             first = points[0]
             defaults = (first.handle_left_type, first.handle_right_type, first.interpolation)
-        wanted_type = 'AUTO_CLAMPED' if left is None else handle_type
+        wanted_type = handle_type[i] if per_curve else handle_type
+        if left is None or wanted_type is None:
+            wanted_type = 'AUTO_CLAMPED'
         if left is not None:
             points.foreach_set("handle_left", left.ravel())
             points.foreach_set("handle_right", handles_right[i].ravel())
-        if defaults[0] != wanted_type or defaults[1] != wanted_type:
+        if not isinstance(wanted_type, str):   # one type per key
+            types = _handle_type_values(wanted_type, n)
+            points.foreach_set("handle_left_type", types)
+            points.foreach_set("handle_right_type", types)
+        elif defaults[0] != wanted_type or defaults[1] != wanted_type:
             types = np.full(n, _BEZIER[wanted_type], dtype=np.int32)
             points.foreach_set("handle_left_type", types)
             points.foreach_set("handle_right_type", types)

@@ -37,8 +37,9 @@ class BakeStats:
     keys_written: int
     """Keys written after reduction."""
     max_error_deg: float
-    """Largest difference between the written curves and the per-frame values, degrees
-    (quaternions: rotation angle; Euler: per channel), by evaluate_keys (Blender's Bézier rule)."""
+    """Largest rotation angle between the baked and the simulated bone orientation at any baked
+    frame, degrees, the written (float32) curves evaluated by Blender's Bézier rule
+    (``core.key_reduce.reduce_rotation_keys``); 0 with a key on every frame."""
     action_name: str
     """The bake action, or the user's action for ``into_action``."""
     into_action: bool
@@ -52,7 +53,7 @@ class BakeStats:
     def summary(self) -> str:
         where = "into the action" if self.into_action else f"on the {BAKE_TRACK_NAME} layer"
         return (f"Baked {self.keys_written} keys on {len(self.bones)} bones over {self.n_frames} frames {where} "
-                f"({self.reduction_percent:.0f} % fewer than per frame, max error {self.max_error_deg:.2f}°)")
+                f"({self.reduction_percent:.0f} % fewer than per frame, max rotation error {self.max_error_deg:.2f}°)")
 
 
 def _validate(obj, frames, offsets, tolerance_deg, influence):
@@ -133,7 +134,7 @@ def _channel_jobs(obj, scene, frames, names, into_action, report):
 
 
 def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, influence=1.0,
-                 progress=None, scene=None, tolerance_by_bone_deg=None) -> BakeStats:
+                 progress=None, scene=None, tolerance_by_bone_deg=None, shared_frames=False) -> BakeStats:
     """Bake per-frame rotation offsets of bones onto the "Overlap Bake" layer (or into the action).
 
     Parameters
@@ -142,12 +143,15 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     frames : array_like, shape (n,), whole frame numbers, increasing, n >= 2
     offsets : {bone name: array_like, shape (n, 4)}, unit quaternions (w, x, y, z) to right-multiply
         onto each bone's animated basis rotation (final = animated ∘ offset).
-    tolerance_deg : float, largest error of the written curves at every frame (0 keeps every frame)
+    tolerance_deg : float, largest rotation angle between the baked and the simulated orientation
+        at every frame, as Blender evaluates the written curves (0 keeps every frame)
     into_action : bool, write animated ∘ offset into the user's action instead of a layer
     influence : float, 0..1, the layer's influence (ignored with ``into_action``)
     progress : callable(fraction 0..1) or None
     scene : the scene whose frames are sampled (default: the context scene)
     tolerance_by_bone_deg : {bone: float} or None, a tighter tolerance for the bones named
+    shared_frames : bool, key all components of a bone on the same frames (more keys; default
+        False: each component gets only the keys it needs)
 
     Raises
     ------
@@ -168,10 +172,10 @@ def bake_offsets(obj, frames, offsets, tolerance_deg=0.5, into_action=False, inf
     jobs, static = _channel_jobs(obj, scene, frames, list(offsets), into_action, report)
     values = key_sets.channel_values(offsets, jobs)
     report(0.7)
-    quaternion_bones = {n for n, j in jobs.items() if j.mode == 'QUATERNION'}
     per_bone = {n: float(np.deg2rad(min(t, tolerance_deg))) for n, t in (tolerance_by_bone_deg or {}).items()
                 if n in values}
-    key_set = key_sets.make_key_set(frames, values, quaternion_bones, np.deg2rad(tolerance_deg), per_bone)
+    key_set = key_sets.make_key_set(frames, key_sets.rotation_tracks(values, jobs, into_action),
+                                    np.deg2rad(tolerance_deg), per_bone, shared_frames)
     report(0.9)
     if into_action:
         action_name = bake_layer.write_into_action(obj, key_set)

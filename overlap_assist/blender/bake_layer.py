@@ -199,28 +199,33 @@ def write_into_action(obj, key_set) -> str:
     for name, keys in key_set.keys_by_bone.items():
         pb = pose[name]
         path = pb.path_from_id(rotation_property(pb))
-        for index in range(keys.co.shape[0]):
+        for index, co in enumerate(keys.co):
+            if co is None:   # into the action every component has a curve; kept for safety
+                continue
             fc = anim_data.ensure_fcurve(bag, path, index, pb.name)
-            co = keys.co[index]
             if keys.handle_left is None:
                 new = anim_data.bezier_keys(co[:, 0], co[:, 1], co, co, "AUTO_CLAMPED")
             else:
                 new = anim_data.bezier_keys(co[:, 0], co[:, 1], keys.handle_left[index], keys.handle_right[index],
-                                            "ALIGNED")
+                                            keys.handle_types[index])
             anim_data.write_keyframes(fc, _merge_outside(fc, new))
     return obj.animation_data.action.name
 
 
 def _write_new(bag, pose, keys_by_bone):
     """Write every bone's keys into F-curves created here (the bake action is new and empty)."""
-    channels, cos, lefts, rights = [], [], [], []
+    channels, cos, lefts, rights, types = [], [], [], [], []
     for name, keys in keys_by_bone.items():
         path = pose[name].path_from_id(rotation_property(pose[name]))
-        channels.extend((path, index, name) for index in range(keys.co.shape[0]))
-        cos.extend(keys.co)
-        lefts.extend(keys.handle_left if keys.handle_left is not None else [None] * keys.co.shape[0])
-        rights.extend(keys.handle_right if keys.handle_right is not None else [None] * keys.co.shape[0])
-    anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), cos, lefts, rights, 'ALIGNED')
+        for index, co in enumerate(keys.co):
+            if co is None:   # the component needs no curve
+                continue
+            channels.append((path, index, name))
+            cos.append(co)
+            lefts.append(keys.handle_left[index] if keys.handle_left is not None else None)
+            rights.append(keys.handle_right[index] if keys.handle_right is not None else None)
+            types.append(keys.handle_types[index] if keys.handle_types is not None else None)
+    anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), cos, lefts, rights, types)
 
 
 def _set_strip_influence(strip, value, frame):

@@ -10,14 +10,16 @@ No Blender calls here: takes arrays, returns a :class:`KeySet` (plain numpy arra
   *under* the action (``layer ∘ U``), so ``U ∘ offset ∘ U⁻¹ ∘ U = U ∘ offset``.
 - ``LAYERED`` Euler: ``euler(animated ∘ offset) - euler(animated)`` (COMBINE adds Euler angles).
 
-Keys: at tolerance 0 a key on every frame with Blender's automatic handles; above 0 the reduced
-Bézier keys with ALIGNED handles as computed by ``core.key_reduce``.
+Keys: at tolerance 0 a key on every frame with Blender's automatic handles; above 0 the keys of
+``core.key_reduce.reduce_rotation_keys``: each component keyed where it needs keys, fitted handles
+(ALIGNED where both sides share a slope, FREE elsewhere), no curve for a component that stays at
+the value it has without one, the rotation angle bounded at every frame.
 """
 from dataclasses import dataclass
 
 import numpy as np
 
-from ..core.key_reduce import reduce_euler_groups, reduce_quaternion_groups
+from ..core.key_reduce import RotationTrack, reduce_rotation_keys
 from ..core.rotations import compose_euler, quat_multiply
 
 ABSOLUTE = "ABSOLUTE"
@@ -27,15 +29,17 @@ _IDENTITY = np.array([1.0, 0.0, 0.0, 0.0])
 
 @dataclass(frozen=True, slots=True)
 class BoneKeys:
-    """Keys for one bone's rotation channel, components first; handles None = Blender's automatic."""
+    """Keys for one bone's rotation channel, one entry per component (None: no curve is written);
+    handles None = Blender's automatic; handle_types: per-key type names or None (AUTO_CLAMPED)."""
 
-    co: np.ndarray            # (c, n, 2) float32 (frame, value)
-    handle_left: object       # (c, n, 2) float32 or None
+    co: object                # sequence of (n_i, 2) float32 (frame, value) or None
+    handle_left: object       # sequence of (n_i, 2) float32, or None for automatic handles
     handle_right: object
+    handle_types: object = None
 
     @property
     def n_keys(self):
-        return int(self.co.shape[0] * self.co.shape[1])
+        return int(sum(c.shape[0] for c in self.co if c is not None))
 
 
 @dataclass(frozen=True, slots=True)
@@ -47,7 +51,8 @@ class KeySet:
     keys_before: int
     """Keys a per-frame bake would write (channels x frames)."""
     max_error_rad: float
-    """Largest difference between the keys (Blender's Bézier rule) and the per-frame values."""
+    """Largest rotation angle between the orientation the keys give (float32 curves, Blender's
+    Bézier rule) and the per-frame one, at any frame; 0 with a key on every frame."""
 
     @property
     def keys_written(self) -> int:
@@ -101,26 +106,53 @@ def channel_values(offsets, jobs):
     return {n: values[n] for n in jobs}
 
 
-def _reduce_all(frames, values_by_bone, quaternion_bones, tol_rad):
-    """Reduce every bone's channel values at once (one batched call per rotation kind)."""
-    out, max_err = {}, 0.0
-    quat_names = [n for n in values_by_bone if n in quaternion_bones]
-    euler_names = [n for n in values_by_bone if n not in quaternion_bones]
-    for names, reduce in ((quat_names, reduce_quaternion_groups), (euler_names, reduce_euler_groups)):
-        if names:
-            curves, errors = reduce(frames, np.stack([values_by_bone[n] for n in names]), tol_rad, with_errors=True)
-            out.update(zip(names, curves))
-            max_err = max(max_err, float(np.max(errors)))
-    return {n: out[n] for n in values_by_bone}, max_err
+def rotation_tracks(values_by_bone, jobs, into_action):
+    """{bone: RotationTrack} for the reducer: what each written channel must evaluate to, the
+    Euler angles a COMBINE layer adds to, and the value a component without a curve has.
+
+    - LAYERED quaternion: COMBINE with no curve is the identity (no offset).
+    - LAYERED Euler: the curves add to the animated angles (``basis``); no curve adds 0.
+    - ABSOLUTE on the layer: a component without a curve keeps its static value.
+    - ``into_action``: every component keeps a curve (the action's channel is replaced).
+    """
+    tracks = {}
+    for name, values in values_by_bone.items():
+        job = jobs[name]
+        basis, rest = None, None
+        if job.how == LAYERED:
+            if job.mode == 'QUATERNION':
+                rest = _IDENTITY
+            else:
+                basis, rest = job.basis, np.zeros(3)
+        elif not into_action:
+            rest = np.asarray(job.basis[0], dtype=np.float64)   # the static value, tiled
+        tracks[name] = RotationTrack(values, job.mode, basis, rest)
+    return tracks
 
 
-def _keys_from_curves(curves):
-    """BoneKeys of reduced curves sharing their key frames (ALIGNED handles as written)."""
-    co = np.empty((len(curves), curves[0].n_keys_after, 2), dtype=np.float32)
-    co[:, :, 0] = curves[0].key_frames
-    co[:, :, 1] = [c.key_values for c in curves]
-    return BoneKeys(co, np.array([c.handle_left for c in curves], dtype=np.float32),
-                    np.array([c.handle_right for c in curves], dtype=np.float32))
+def _reduce_all(frames, tracks, tol_rad, shared_frames=False):
+    """{bone: BoneKeys} within ``tol_rad`` of rotation angle at every frame, and the largest
+    measured angle (rad): one call of the core reducer for all bones ({bone: RotationTrack})."""
+    names = list(tracks)
+    reduced = reduce_rotation_keys(frames, [tracks[n] for n in names], tol_rad, shared_frames=shared_frames)
+    out = {}
+    for name, keys in zip(names, reduced):
+        co, lefts, rights, types = [], [], [], []
+        for ch in keys.channels:
+            if ch is None:   # the component needs no curve
+                co.append(None)
+                lefts.append(None)
+                rights.append(None)
+                types.append(None)
+                continue
+            pair = np.empty((ch.n_keys, 2), dtype=np.float32)
+            pair[:, 0], pair[:, 1] = ch.frames, ch.values
+            co.append(pair)
+            lefts.append(np.ascontiguousarray(ch.handle_left, dtype=np.float32))
+            rights.append(np.ascontiguousarray(ch.handle_right, dtype=np.float32))
+            types.append(ch.handle_types())
+        out[name] = BoneKeys(co, lefts, rights, types)
+    return out, max((k.max_error_rad for k in reduced), default=0.0)
 
 
 def _keys_every_frame(frames, values_by_bone):
@@ -132,25 +164,28 @@ def _keys_every_frame(frames, values_by_bone):
         co = np.empty((len(names), n_components, len(frames), 2), dtype=np.float32)
         co[:, :, :, 0] = frames
         co[:, :, :, 1] = np.stack([values_by_bone[n] for n in names]).transpose(0, 2, 1)
-        out.update((n, BoneKeys(co[b], None, None)) for b, n in enumerate(names))
+        out.update((n, BoneKeys(list(co[b]), None, None)) for b, n in enumerate(names))
     return {n: out[n] for n in values_by_bone}
 
 
-def make_key_set(frames, values_by_bone, quaternion_bones, tol_rad, tol_by_bone=None) -> KeySet:
-    """Keys for every bone: per frame at tolerance 0, else reduced within the tolerance.
+def make_key_set(frames, tracks, tol_rad, tol_by_bone=None, shared_frames=False) -> KeySet:
+    """Keys for every bone ({bone: RotationTrack}, see :func:`rotation_tracks`): per frame at
+    tolerance 0, else reduced within the tolerance (rotation angle).
 
     ``tol_by_bone`` ({bone: radians}) overrides ``tol_rad`` for the bones it names (chains whose
     errors add up through constraints bake tighter); bones sharing a tolerance are reduced together.
+    ``shared_frames``: key all components of a bone on the same frames (more keys; default False:
+    each component gets only the keys it needs).
     """
-    tol = {n: (tol_by_bone or {}).get(n, tol_rad) for n in values_by_bone}
+    values_by_bone = {n: t.values for n, t in tracks.items()}
+    tol = {n: (tol_by_bone or {}).get(n, tol_rad) for n in tracks}
     keys_before = sum(v.shape[1] for v in values_by_bone.values()) * len(frames)
     keys, max_err = {}, 0.0
     for t in sorted(set(tol.values())):
-        group = {n: v for n, v in values_by_bone.items() if tol[n] == t}
         if t == 0.0:
-            keys.update(_keys_every_frame(frames, group))
+            keys.update(_keys_every_frame(frames, {n: v for n, v in values_by_bone.items() if tol[n] == t}))
             continue
-        per_bone, err = _reduce_all(frames, group, quaternion_bones, t)
-        keys.update((n, _keys_from_curves(c)) for n, c in per_bone.items())
+        group, err = _reduce_all(frames, {n: tr for n, tr in tracks.items() if tol[n] == t}, t, shared_frames)
+        keys.update(group)
         max_err = max(max_err, err)
-    return KeySet({n: keys[n] for n in values_by_bone}, keys_before, max_err)
+    return KeySet({n: keys[n] for n in tracks}, keys_before, max_err)

@@ -52,6 +52,10 @@ __all__ = [
     "reduce_quaternion_groups",
     "reduce_euler_groups",
     "FLOAT32_MARGIN_REL",
+    "RotationTrack",
+    "ChannelKeys",
+    "RotationKeys",
+    "reduce_rotation_keys",
 ]
 
 # Part of the tolerance reserved for Blender storing keys and handles as float32 and solving
@@ -601,3 +605,377 @@ def reduce_quaternion_groups(frames, quats, tolerance_rad: float, *, with_errors
     curves, errors = _reduce_groups(frames, q, tolerance_rad, margin_rad, _quaternion_half_tan_sq, slopes,
                                     measure=_HALF_TAN_SQ)
     return (curves, errors) if with_errors else curves
+
+
+# ---------------------------------------------------------------------------------------------
+# Rotation keys bounded by the true rotation angle (the bake's entry point)
+# ---------------------------------------------------------------------------------------------
+# The tolerance is the rotation angle between the orientation Blender evaluates from the written
+# curves and the simulated orientation, at every frame, for quaternions and every Euler order.
+# Channels are fitted separately, each within a share of the tolerance (its budget, in channel
+# units); the written keys are then evaluated the way Blender evaluates them (float32 keys and
+# handles, x(t) = frame solved, core.bezier_fit) and the rotation angle is measured at every frame.
+# Where it exceeds the tolerance, the budgets of that bone's channels are lowered on the segments
+# around those frames and the bone is fitted again; a bone that still fails after a few rounds
+# gets a key on every frame (exact at the frames). Nothing is written that was not measured.
+
+_BUDGET_SHARE = {"QUATERNION": 0.45, "EULER": 0.8}
+"""First budget of each channel as a fraction of the tolerance. Quaternion components: a change e
+of the unit quaternion turns it by about 2|e|; Euler axes: the rotation angle is at most the sum of
+the three axis errors (the angle between rotations is a metric invariant under composition) and
+typically about their root sum of squares. Measured on the demo and a Rigify rig (bench), these
+shares gave the fewest keys after the checks; any share is safe because every bone is measured."""
+
+_MAX_ROUNDS = 8
+_SHRINK_MIN, _SHRINK_MAX = 0.3, 0.8
+
+# Blender evaluates in float32 (t rounded, y(t) in single precision): a channel can differ from
+# the float64 evaluation of its float32 controls by a few float32 ulps of its largest control
+# value and of 3 x its largest handle height (|dy/dt|); 2**-20 leaves a factor of ~8. The rotation
+# angle moves by at most twice the sum of the component changes.
+_F32_MARGIN_REL = 2.0**-20
+
+_EVAL_CHUNK = 1 << 16   # channel-frames evaluated per pass when checking (bounds the temporaries)
+
+
+@dataclass(frozen=True, slots=True)
+class RotationTrack:
+    """One bone's rotation channel as the bake writes it.
+
+    values : (n, c) what the written curves must evaluate to at each frame (quaternion (w, x, y, z)
+        or Euler (x, y, z) radians)
+    mode : 'QUATERNION' or an Euler order ('XYZ', ...)
+    basis : (n, 3) Euler angles Blender adds the curves to (a COMBINE layer over the animated pose),
+        or None (the curves are the channel: absolute values)
+    rest : (c,) the value of a component that gets no curve, or None: every component keeps a curve
+    """
+
+    values: np.ndarray
+    mode: str
+    basis: object = None
+    rest: object = None
+
+
+@dataclass(frozen=True, slots=True)
+class ChannelKeys:
+    """Keys of one F-curve: write with interpolation BEZIER; handle types 'ALIGNED' where
+    ``aligned`` else 'FREE' (both sides of a key)."""
+
+    frames: np.ndarray          # (k,)
+    values: np.ndarray          # (k,)
+    handle_left: np.ndarray     # (k, 2) (frame, value)
+    handle_right: np.ndarray    # (k, 2)
+    aligned: np.ndarray         # (k,) bool
+
+    @property
+    def n_keys(self) -> int:
+        return int(self.frames.shape[0])
+
+    def handle_types(self) -> np.ndarray:
+        return np.where(self.aligned, "ALIGNED", "FREE")
+
+
+@dataclass(frozen=True, slots=True)
+class RotationKeys:
+    """The curves of one track: one entry per component, None where no curve is needed."""
+
+    channels: tuple
+    max_error_rad: float
+    """Largest rotation angle between the evaluated curves and the targets over the frames."""
+
+    @property
+    def n_keys(self) -> int:
+        return sum(ch.n_keys for ch in self.channels if ch is not None)
+
+
+def _channel_keys(frames, values, key_idx, slope_in, slope_out) -> ChannelKeys:
+    """Keys on ``key_idx`` with the sample values, handles at thirds with the given slopes."""
+    x = frames[key_idx]
+    y = values[key_idx]
+    if x.shape[0] == 1:
+        return ChannelKeys(x, y, np.array([[x[0] - 1.0, y[0]]]), np.array([[x[0] + 1.0, y[0]]]), np.ones(1, bool))
+    gap = np.diff(x)
+    h_prev = np.concatenate((gap[:1], gap)) / 3.0
+    h_next = np.concatenate((gap, gap[-1:])) / 3.0
+    left = np.stack((x - h_prev, y - slope_in * h_prev), axis=1)
+    right = np.stack((x + h_next, y + slope_out * h_next), axis=1)
+    aligned = np.abs(slope_in - slope_out) <= 1e-12 * (1.0 + np.abs(slope_in))
+    return ChannelKeys(x, y, left, right, aligned)
+
+
+def _constant_keys(frame, value) -> ChannelKeys:
+    return _channel_keys(np.array([float(frame)]), np.array([float(value)]), np.array([0]), np.zeros(1), np.zeros(1))
+
+
+def _evaluate_channel_set(frames, keys_list, rest_values):
+    """(m, n) Blender evaluation of curves (float32 controls); None entries give ``rest_values``."""
+    from .bezier_fit import evaluate_curves, round_float32
+    out = np.empty((len(keys_list), frames.shape[0]))
+    live = [i for i, k in enumerate(keys_list) if k is not None]
+    for i, k in enumerate(keys_list):
+        if k is None:
+            out[i] = rest_values[i]
+    per_pass = max(1, _EVAL_CHUNK // frames.shape[0])
+    for p in range(0, len(live), per_pass):
+        part = live[p:p + per_pass]
+        ks = [keys_list[i] for i in part]
+        kx = round_float32(np.concatenate([k.frames for k in ks]))
+        ky = round_float32(np.concatenate([k.values for k in ks]))
+        left = round_float32(np.concatenate([k.handle_left for k in ks]))
+        right = round_float32(np.concatenate([k.handle_right for k in ks]))
+        curve_of = np.repeat(np.arange(len(ks)), [k.n_keys for k in ks])
+        out[part] = evaluate_curves(kx, ky, left, right, curve_of, len(ks), frames)
+    return out
+
+
+def _angle_between(qa, qb):
+    """Rotation angle (rad) between quaternions (components first, (4, n)); qa need not be unit."""
+    return _quaternion_angle_error(qa, qb / np.linalg.norm(qb, axis=0, keepdims=True))
+
+
+def _tracks_errors(frames, tracks, keys_of_tracks):
+    """Per track: (rotation angle per frame between the evaluated curves and the targets, float32
+    allowance in rad for Blender's own arithmetic). Tracks are evaluated in batches of about
+    ``_EVAL_CHUNK`` channel-frames."""
+    per_batch = max(1, _EVAL_CHUNK // (4 * frames.shape[0]))
+    out = []
+    for b in range(0, len(tracks), per_batch):
+        out.extend(_batch_errors(frames, tracks[b:b + per_batch], keys_of_tracks[b:b + per_batch]))
+    return out
+
+
+def _batch_errors(frames, tracks, keys_of_tracks):
+    from .rotations import euler_to_quat
+    flat_keys, flat_rest, first_row = [], [], []
+    for track, keys in zip(tracks, keys_of_tracks):
+        first_row.append(len(flat_keys))
+        flat_keys.extend(keys)
+        flat_rest.extend(track.rest if track.rest is not None else np.zeros(track.values.shape[1]))
+    evaluated_all = _evaluate_channel_set(frames, flat_keys, flat_rest)      # (m, n)
+    # Float32 allowance per component: largest value, 3 x largest handle height, largest basis angle.
+    top = np.max(np.abs(evaluated_all), axis=1)
+    live = [i for i, k in enumerate(flat_keys) if k is not None]
+    if live:
+        heights = np.concatenate([np.maximum(np.abs(flat_keys[i].handle_left[:, 1] - flat_keys[i].values),
+                                             np.abs(flat_keys[i].handle_right[:, 1] - flat_keys[i].values))
+                                  for i in live])
+        counts = np.array([flat_keys[i].n_keys for i in live])
+        top[live] += 3.0 * np.maximum.reduceat(heights, np.concatenate(([0], np.cumsum(counts)[:-1])))
+    out = [None] * len(tracks)
+    by_mode = {}
+    for t, track in enumerate(tracks):
+        by_mode.setdefault(track.mode, []).append(t)
+    n = frames.shape[0]
+    for mode, members in by_mode.items():
+        c = 4 if mode == "QUATERNION" else 3
+        rows = np.concatenate([np.arange(first_row[t], first_row[t] + c) for t in members])
+        evaluated = evaluated_all[rows].reshape(len(members), c, n)
+        target = np.stack([tracks[t].values.T for t in members])                # (T, c, n)
+        scale = (1.0 + top[rows]).reshape(len(members), c)
+        if mode != "QUATERNION":
+            basis = np.stack([tracks[t].basis.T if tracks[t].basis is not None else np.zeros((c, n))
+                              for t in members])
+            scale = scale + np.max(np.abs(basis), axis=2)
+            evaluated = evaluated + basis
+            target = target + basis
+            evaluated = euler_to_quat(evaluated.transpose(0, 2, 1), mode).transpose(0, 2, 1)
+            target = euler_to_quat(target.transpose(0, 2, 1), mode).transpose(0, 2, 1)
+        angles = _angle_between(evaluated.transpose(1, 0, 2).reshape(4, -1),
+                                target.transpose(1, 0, 2).reshape(4, -1)).reshape(len(members), n)
+        margins = 2.0 * _F32_MARGIN_REL * np.sum(scale, axis=1)
+        for j, t in enumerate(members):
+            out[t] = (angles[j], float(margins[j]))
+    return out
+
+
+def _every_frame_keys(frames, track):
+    """Keys on every frame with the data's slopes (exact at the frames)."""
+    from .bezier_fit import data_slopes_at
+    n = frames.shape[0]
+    idx = np.arange(n)
+    slopes = data_slopes_at(frames, track.values.T, np.zeros(n, dtype=np.intp), idx, n)
+    return tuple(_channel_keys(frames, track.values[:, i], idx, slopes[i], slopes[i])
+                 for i in range(track.values.shape[1]))
+
+
+def _keys_from_segments(frames, values, lo, hi, s_out, s_in) -> ChannelKeys:
+    """ChannelKeys of consecutive segments (sorted, lo[k + 1] == hi[k]) of one component."""
+    idx = np.concatenate((lo, hi[-1:]))
+    slope_out = np.concatenate((s_out, s_in[-1:]))
+    slope_in = np.concatenate((s_out[:1], s_in))
+    return _channel_keys(frames, values, idx, slope_in, slope_out)
+
+
+def _fit_tracks(frames, tracks, budgets, shared_frames, plans=None, bad_frames=None):
+    """Keys of every track from its per-frame budgets (n, c).
+
+    ``plans`` (per track, per component: None = no curve, a float = one key, or (lo, hi, slope_out,
+    slope_in) segments) and ``bad_frames`` (per track) come from a previous round: components
+    with segments then refit only their segments holding bad frames. Returns (keys, plans).
+    """
+    from .bezier_fit import fit_keys
+    n = frames.shape[0]
+    new_plans = []
+    jobs = []   # (track index, [components], [(lo, hi) ranges]) fitted as one group per range set
+    for ti, (track, budget) in enumerate(zip(tracks, budgets)):
+        v = track.values
+        c = v.shape[1]
+        old = plans[ti] if plans is not None else [None] * c
+        plan = [None] * c
+        partial = plans is not None and not shared_frames
+        b_min = np.min(budget, axis=0)
+        near_rest = (np.max(np.abs(v - track.rest), axis=0) <= b_min) if track.rest is not None else np.zeros(c, bool)
+        if track.mode == "QUATERNION" and not near_rest.all():
+            near_rest[:] = False          # a quaternion keeps all four curves or none
+        flat = (np.ptp(v, axis=0) <= 2.0 * b_min) & ~near_rest
+        fit = []
+        for ci in range(c):
+            if partial and isinstance(old[ci], tuple):
+                lo, hi, s_out, s_in = old[ci]
+                key_idx = np.concatenate((lo, hi[-1:]))
+                seg = np.unique(np.clip(np.searchsorted(key_idx, bad_frames[ti], side="right") - 1, 0, lo.shape[0] - 1))
+                keep = np.ones(lo.shape[0], bool)
+                keep[seg] = False
+                plan[ci] = (lo[keep], hi[keep], s_out[keep], s_in[keep])
+                jobs.append((ti, [ci], list(zip(lo[seg], hi[seg]))))
+            elif near_rest[ci]:
+                plan[ci] = None
+            elif flat[ci]:
+                plan[ci] = float(0.5 * (np.max(v[:, ci]) + np.min(v[:, ci])))
+            else:
+                fit.append(ci)
+        if shared_frames and fit:
+            fit = [ci for ci in range(c) if not near_rest[ci]]
+        if shared_frames and fit:
+            jobs.append((ti, fit, [(0, n - 1)]))
+        elif fit:
+            jobs.extend((ti, [ci], [(0, n - 1)]) for ci in fit)
+        new_plans.append(plan)
+    by_width = {}
+    for job in jobs:
+        by_width.setdefault(len(job[1]), []).append(job)
+    for width, group in by_width.items():
+        flat_values = np.empty((width, len(group) * n))
+        flat_budget = np.empty((width, len(group) * n), dtype=np.float32)
+        rg, rlo, rhi = [], [], []
+        for g, (ti, chans, ranges) in enumerate(group):
+            flat_values[:, g * n:(g + 1) * n] = tracks[ti].values[:, chans].T
+            flat_budget[:, g * n:(g + 1) * n] = budgets[ti][:, chans].T
+            for lo, hi in ranges:
+                rg.append(g)
+                rlo.append(lo)
+                rhi.append(hi)
+        seg_g, seg_lo, seg_hi, s_out, s_in = fit_keys(frames, flat_values, flat_budget, len(group), n,
+                                                      ranges=(rg, rlo, rhi))
+        bounds = np.searchsorted(seg_g, np.arange(len(group) + 1))
+        for g, (ti, chans, _ranges) in enumerate(group):
+            a, b = bounds[g], bounds[g + 1]
+            for w, ci in enumerate(chans):
+                lo, hi, so, si = seg_lo[a:b], seg_hi[a:b], s_out[w, a:b], s_in[w, a:b]
+                kept = new_plans[ti][ci]
+                if isinstance(kept, tuple):   # merge with the segments kept from the last round
+                    lo, hi = np.concatenate((kept[0], lo)), np.concatenate((kept[1], hi))
+                    so, si = np.concatenate((kept[2], so)), np.concatenate((kept[3], si))
+                    order = np.argsort(lo, kind="stable")
+                    lo, hi, so, si = lo[order], hi[order], so[order], si[order]
+                new_plans[ti][ci] = (lo, hi, so, si)
+    keys = []
+    for ti, plan in enumerate(new_plans):
+        v = tracks[ti].values
+        row = []
+        for ci, p in enumerate(plan):
+            if p is None:
+                row.append(None)
+            elif isinstance(p, tuple):
+                row.append(_keys_from_segments(frames, v[:, ci], *p))
+            else:
+                row.append(_constant_keys(frames[0], p))
+        keys.append(tuple(row))
+    return keys, new_plans
+
+
+def _shrink_budget(frames, budget, keys, bad_frames, factor):
+    """Lower the budget of every component on the segments (between its keys) holding bad frames."""
+    n = frames.shape[0]
+    for ci, k in enumerate(keys):
+        if k is None or k.n_keys == 1:
+            budget[:, ci] *= factor
+            continue
+        key_idx = np.searchsorted(frames, k.frames)
+        seg = np.clip(np.searchsorted(key_idx, bad_frames, side="right") - 1, 0, key_idx.shape[0] - 2)
+        lo, hi = key_idx[seg], np.minimum(key_idx[seg + 1], n - 1)
+        mark = np.zeros(n + 1, dtype=np.int64)
+        np.add.at(mark, lo, 1)
+        np.add.at(mark, hi + 1, -1)
+        budget[np.cumsum(mark)[:n] > 0, ci] *= factor
+
+
+def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames: bool = False) -> list:
+    """Fewest keys within a rotation-angle tolerance: one :class:`RotationKeys` per track.
+
+    Parameters
+    ----------
+    frames : array_like, shape (n,), increasing, n >= 2
+    tracks : sequence of RotationTrack
+    tolerance_rad : float > 0
+        Largest rotation angle between the orientation Blender evaluates from the written curves
+        (float32 keys and handles) and the target orientation, at every frame.
+    shared_frames : bool
+        Key every component of a track on the same frames (the layout some animators prefer;
+        more keys). Default False: each component gets the keys it needs.
+
+    Returns
+    -------
+    list of RotationKeys; ``max_error_rad`` of each is the measured rotation angle bound.
+    """
+    frames, tolerance_rad = _check_frames_tolerance(frames, tolerance_rad)
+    if frames.shape[0] < 2:
+        raise InputError("reduce_rotation_keys needs at least two frames")
+    if tolerance_rad <= 0.0:
+        raise InputError("reduce_rotation_keys needs a tolerance above 0 (0 means a key on every frame)")
+    checked = []
+    for t in tracks:
+        v = np.asarray(t.values, dtype=np.float64)
+        c = 4 if t.mode == "QUATERNION" else 3
+        if v.shape != (frames.shape[0], c) or not np.all(np.isfinite(v)):
+            raise InputError(f"a {t.mode} track needs finite values of shape ({frames.shape[0]}, {c}), got {v.shape}")
+        basis = None if t.basis is None else np.asarray(t.basis, dtype=np.float64)
+        rest = None if t.rest is None else np.asarray(t.rest, dtype=np.float64)
+        checked.append(RotationTrack(v, t.mode, basis, rest))
+    tracks = checked
+    n = frames.shape[0]
+    budgets = [np.full((n, t.values.shape[1]),   # float32: half the memory; only compared against
+                       _BUDGET_SHARE["QUATERNION" if t.mode == "QUATERNION" else "EULER"] * tolerance_rad,
+                       dtype=np.float32)
+               for t in tracks]
+    out = [None] * len(tracks)
+    todo = list(range(len(tracks)))
+    plans = [None] * len(tracks)
+    bad_frames = [None] * len(tracks)
+    for round_ in range(_MAX_ROUNDS):
+        if not todo:
+            break
+        fitted, new_plans = _fit_tracks(frames, [tracks[i] for i in todo], [budgets[i] for i in todo], shared_frames,
+                                        None if round_ == 0 else [plans[i] for i in todo],
+                                        None if round_ == 0 else [bad_frames[i] for i in todo])
+        for i, plan in zip(todo, new_plans):
+            plans[i] = plan
+        again = []
+        measured = _tracks_errors(frames, [tracks[i] for i in todo], fitted)
+        for i, keys, (err, margin) in zip(todo, fitted, measured):
+            limit = tolerance_rad - margin
+            worst = float(np.max(err))
+            if worst <= limit:
+                out[i] = RotationKeys(keys, worst)
+                continue
+            bad = np.flatnonzero(err > limit)
+            factor = float(np.clip(0.9 * limit / worst, _SHRINK_MIN, _SHRINK_MAX))
+            _shrink_budget(frames, budgets[i], keys, bad, factor)
+            bad_frames[i] = bad
+            again.append(i)
+        todo = again
+    for i in todo:   # still over after the last round: a key on every frame
+        keys = _every_frame_keys(frames, tracks[i])
+        err, _margin = _tracks_errors(frames, [tracks[i]], [keys])[0]
+        out[i] = RotationKeys(keys, float(np.max(err)))
+    return out

@@ -237,9 +237,9 @@ def test_reduction_stays_within_tolerance_with_far_fewer_keys(mode):
     assert stats.reduction_percent >= 70.0, stats.summary()
     assert stats.max_error_deg <= tol_deg
     curves = bake_fcurves(obj)
-    for fc in curves.values():   # handles survive fc.update() as written
+    for fc in curves.values():   # fitted handles: ALIGNED where both sides share a slope, else FREE
         types = {k.handle_left_type for k in fc.keyframe_points} | {k.handle_right_type for k in fc.keyframe_points}
-        assert types == {'ALIGNED'}
+        assert types <= {'ALIGNED', 'FREE'}
     # Reference: Blender's FCurve.evaluate of the reduced curves at every frame.
     if mode == "QUATERNION":
         for bone in CHAIN:
@@ -251,10 +251,16 @@ def test_reduction_stays_within_tolerance_with_far_fewer_keys(mode):
             dots = np.abs(np.sum(got * ref, axis=1))
             angle = 2 * np.arccos(np.clip(dots, -1, 1))
             assert np.rad2deg(angle.max()) <= tol_deg
-    else:
-        for key, fc in curves.items():
-            err = np.abs(np.array([fc.evaluate(f) for f in frames]) - exact[key])
-            assert np.rad2deg(err.max()) <= tol_deg
+    else:   # the tolerance is the rotation angle (Euler layer values add to the animated angles)
+        # Whole orientations as Blender evaluates the scene: after the reduced bake vs the exact one.
+        reduced_rot, _ = sample_pose(obj, frames)
+        bake_offsets(obj, frames, offsets, tolerance_deg=0.0)
+        exact_rot, _ = sample_pose(obj, frames)
+        rel = np.einsum('fbji,fbjk->fbik', exact_rot, reduced_rot)
+        axis = np.stack((rel[..., 2, 1] - rel[..., 1, 2], rel[..., 0, 2] - rel[..., 2, 0],
+                         rel[..., 1, 0] - rel[..., 0, 1]), axis=-1)
+        angle = np.arctan2(0.5 * np.linalg.norm(axis, axis=-1), 0.5 * (np.trace(rel, axis1=2, axis2=3) - 1.0))
+        assert np.rad2deg(angle.max()) <= tol_deg + 1e-4   # + float32 matrices (~1e-6 rad)
 
 
 def test_rebake_replaces_only_its_layer_and_is_identical():

@@ -136,12 +136,21 @@ def _baked_directions(obj, names, frames):
     return out / np.linalg.norm(out, axis=-1, keepdims=True)
 
 
-@pytest.mark.parametrize("scale", [(3.0, 1.0, 1.0), (1.0, 1.0, 2.0)])
+@pytest.mark.parametrize("scale", [(3.0, 1.0, 1.0), (1.0, 1.0, 2.0), (1.0, 1.0, 1.0)])
 @pytest.mark.parametrize("tolerance_deg, allowed_deg", [
     (0.0, 0.05),   # a key on every frame: float32 keys and Blender's COMBINE rounding only (~0.04°)
-    (0.5, 1.5),    # reduced keys: each of the 3 bones may be off by the tolerance, and errors add down the chain
+    (0.5, None),   # reduced keys: see below
 ])
 def test_uneven_object_scale_bakes_the_simulated_directions(scale, tolerance_deg, allowed_deg):
+    if allowed_deg is None:
+        # Reduced keys: each of the 3 bones may be off by the tolerance (a rotation angle, in the
+        # armature's own space) and the errors add down the chain: 3 x tol. An uneven object scale S
+        # then turns a small angle between two directions by at most max(S)/min(S) in world space
+        # (the ratio of the largest to the smallest singular value of S). Before the rotation-angle
+        # reducer (issue 15) the keys used less of their budget and 3 x tol held even under
+        # scale; the reducer fills the budget (measured: 0.77° at scale 1, 0.84° at (1, 1, 2),
+        # 2.03° at (3, 1, 1), on Blender 5.3), so the bound now carries the scale factor.
+        allowed_deg = 3 * tolerance_deg * max(scale) / min(scale)
     obj = make_rig()
     obj.scale = scale
     scene = bpy.context.scene

@@ -1,0 +1,341 @@
+"""Bézier F-curve segments: Blender's evaluation rule, and least-squares handle fitting.
+
+Evaluation (what Blender does with a Bézier segment, written independently in numpy)
+------------------------------------------------------------------------------------
+A segment between keys ``(x0, y0)`` and ``(x1, y1)`` with the right handle of the first key
+``(hx0, hy0)`` and the left handle of the second ``(hx1, hy1)`` is the 2-D cubic Bézier curve with
+those four control points. Time is its x coordinate: Blender first shrinks the two handles
+towards their keys by one common factor when their x extents together exceed the segment
+(``BKE_fcurve_correct_bezpart``: factor = segment length / (|x0 - hx0| + |x1 - hx1|)), then
+solves x(t) = frame for the parameter t and returns y(t). A frame on a key returns the key value;
+before the first and after the last key the curve holds the end values (constant extrapolation).
+Keys and handles are stored as float32: :func:`round_float32` gives the stored values.
+
+Fitting (what the reducer asks of a segment)
+--------------------------------------------
+The key values stay the sampled values; the handle heights are fitted. With both handles at one
+third of the segment in x, x(t) is linear and the parameter of every sampled frame is known
+exactly (no reparameterisation as in Schneider 1990, whose least-squares step this is with the
+handle x extents fixed): the curve is the cubic Hermite polynomial in the frame and the two end
+slopes enter linearly, so the least-squares slopes over the segment's interior frames are one
+2 x 2 solve. A small ridge term towards the data's own slopes (three-point finite differences,
+Fornberg 1988) keeps segments with one or two interior frames well posed.
+
+References
+----------
+Schneider P.J. 1990, "An algorithm for automatically fitting digitized curves", in Glassner A.S.
+(ed.), Graphics Gems, Academic Press, pp. 612-626 (least-squares handle lengths for fixed
+parameters and end tangents).
+Fornberg B. 1988, "Generation of finite difference formulas on arbitrarily spaced grids",
+Mathematics of Computation 51(184):699-706.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["round_float32", "correct_handles", "evaluate_segments", "evaluate_curves", "data_slopes_at"]
+
+
+def round_float32(a) -> np.ndarray:
+    """The float64 value of each element as Blender stores it (float32)."""
+    return np.asarray(a, dtype=np.float64).astype(np.float32).astype(np.float64)
+
+
+def correct_handles(x0, y0, hx0, hy0, hx1, hy1, x1, y1):
+    """Blender's handle correction of one segment: (hx0, hy0, hx1, hy1) after shrinking both inner
+    handles towards their keys by a common factor when their x extents overlap."""
+    len0 = np.abs(x0 - hx0)
+    len1 = np.abs(x1 - hx1)
+    total = len0 + len1
+    length = x1 - x0
+    fac = np.where(total > length, length / np.where(total > 0.0, total, 1.0), 1.0)
+    return (x0 - fac * (x0 - hx0), y0 - fac * (y0 - hy0), x1 - fac * (x1 - hx1), y1 - fac * (y1 - hy1))
+
+
+def evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame) -> np.ndarray:
+    """y at ``frame`` on Bézier segments (arrays broadcast together), x0 <= frame <= x1, handles
+    already corrected. x(t) = frame is solved by Newton steps kept inside a shrinking bracket
+    (bisection when a step leaves it), in coordinates relative to x0."""
+    p1, p2, p3 = hx0 - x0, hx1 - x0, x1 - x0
+    u = frame - x0
+    c = 3.0 * p1
+    b = 3.0 * p2 - 6.0 * p1
+    a = p3 - 3.0 * p2 + 3.0 * p1
+    a, b, c, u, p3 = np.broadcast_arrays(a, b, c, u, p3)
+    t = np.clip(u / p3, 0.0, 1.0)
+    lo = np.zeros_like(t)
+    hi = np.ones_like(t)
+    tol = 4e-16 * (np.abs(p3) + np.abs(u)) + 1e-300
+    active = np.arange(t.shape[0]) if t.ndim == 1 else None
+    if active is None:   # scalars or n-d: one pass over everything
+        t, lo, hi, a, b, c, u, tol = (np.ravel(v).copy() for v in (t, lo, hi, a, b, c, u, tol))
+        active = np.arange(t.shape[0])
+    ta, la, ha, aa, ba, ca, ua, tola = t, lo, hi, a, b, c, u, tol
+    for _ in range(60):
+        f = ((aa * ta + ba) * ta + ca) * ta - ua
+        open_ = np.abs(f) > tola
+        if not open_.any():
+            break
+        if not open_.all():   # keep iterating only where not yet converged
+            t[active] = ta
+            active = active[open_]
+            ta, la, ha, aa, ba, ca, ua, tola, f = (v[open_] for v in (ta, la, ha, aa, ba, ca, ua, tola, f))
+        ha = np.where(f > 0.0, ta, ha)
+        la = np.where(f > 0.0, la, ta)
+        d = (3.0 * aa * ta + 2.0 * ba) * ta + ca
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = ta - f / d
+        ta = np.where((d > 0.0) & (step > la) & (step < ha), step, 0.5 * (la + ha))
+    t[active] = ta
+    t = t.reshape(np.shape(frame - x0)) if np.ndim(frame - x0) != 1 else t
+    om = 1.0 - t
+    return (y0 * om * om * om + 3.0 * hy0 * t * om * om + 3.0 * hy1 * t * t * om + y1 * t * t * t)
+
+
+def evaluate_curves(key_x, key_y, left, right, curve_of_key, n_curves, frames) -> np.ndarray:
+    """Blender's evaluation of many Bézier F-curves at the same frames.
+
+    Parameters
+    ----------
+    key_x, key_y : (K,) keys of all curves, concatenated curve after curve, x increasing per curve
+    left, right : (K, 2) left and right handles (frame, value)
+    curve_of_key : (K,) int, non-decreasing, the curve each key belongs to (every curve has >= 1 key)
+    n_curves : int
+    frames : (n,) frames
+
+    Returns
+    -------
+    (n_curves, n) values.
+    """
+    frames = np.asarray(frames, dtype=np.float64)
+    n = frames.shape[0]
+    counts = np.bincount(curve_of_key, minlength=n_curves)
+    starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+    last = starts + counts - 1
+    # Position of every (curve, frame) among the keys: keys are sorted by (curve, frame).
+    span = float(frames[-1] - frames[0]) + float(np.max(key_x) - np.min(key_x)) + 4.0
+    origin = min(float(frames[0]), float(np.min(key_x))) - 1.0
+    key_code = curve_of_key * span + (key_x - origin)
+    query = (np.arange(n_curves)[:, None] * span + (frames - origin)[None, :]).ravel()
+    curve_q = np.repeat(np.arange(n_curves), n)
+    seg = np.searchsorted(key_code, query, side="right") - 1
+    seg = np.clip(seg, starts[curve_q], last[curve_q])
+    on_key = key_x[seg] == np.tile(frames, n_curves)
+    before = np.tile(frames, n_curves) <= key_x[starts[curve_q]]
+    after = np.tile(frames, n_curves) >= key_x[last[curve_q]]
+    seg = np.minimum(seg, np.maximum(last[curve_q] - 1, starts[curve_q]))
+    nxt = np.minimum(seg + 1, last[curve_q])
+    out = key_y[seg].copy()
+    inside = ~(on_key | before | after) & (nxt > seg)
+    if inside.any():
+        s, e = seg[inside], nxt[inside]
+        x0, y0, x1, y1 = key_x[s], key_y[s], key_x[e], key_y[e]
+        hx0, hy0, hx1, hy1 = correct_handles(x0, y0, right[s, 0], right[s, 1], left[e, 0], left[e, 1], x1, y1)
+        out[inside] = evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, np.tile(frames, n_curves)[inside])
+    out = np.where(before, key_y[starts[curve_q]], out)
+    out = np.where(after, key_y[last[curve_q]], out)
+    return out.reshape(n_curves, n)
+
+
+def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
+    """Slopes d(value)/d(frame) of the samples at frame ``index`` of ``group``: the three-point
+    finite differences of Fornberg 1988 (one-sided at the ends; a chord for two frames).
+
+    flat_values : (c, g * n_frames), group-major; group, index : (m,) ints. Returns (c, m).
+    """
+    flat_values = np.asarray(flat_values)
+    if n_frames == 1:
+        return np.zeros((flat_values.shape[0], np.shape(index)[0]))
+    base = group * n_frames
+    if n_frames == 2:
+        return (flat_values[:, base + 1] - flat_values[:, base]) / (frames[1] - frames[0])
+    centre = np.clip(index, 1, n_frames - 2)
+    xm, x0, xp = frames[centre - 1], frames[centre], frames[centre + 1]
+    h1, h2 = x0 - xm, xp - x0
+    ym = flat_values[:, base + centre - 1]
+    y0 = flat_values[:, base + centre]
+    yp = flat_values[:, base + centre + 1]
+    mid = -h2 / (h1 * (h1 + h2)) * ym + (h2 - h1) / (h1 * h2) * y0 + h1 / (h2 * (h1 + h2)) * yp
+    first = -(2.0 * h1 + h2) / (h1 * (h1 + h2)) * ym + (h1 + h2) / (h1 * h2) * y0 - h1 / (h2 * (h1 + h2)) * yp
+    last = h2 / (h1 * (h1 + h2)) * ym - (h1 + h2) / (h1 * h2) * y0 + (2.0 * h2 + h1) / (h2 * (h1 + h2)) * yp
+    return np.where(index == 0, first, np.where(index == n_frames - 1, last, mid))
+
+
+# ---------------------------------------------------------------------------------------------
+# Fitting: recursive splitting with least-squares handle heights
+# ---------------------------------------------------------------------------------------------
+
+_CHUNK_FRAMES = 1 << 16
+"""Interior frames evaluated per numpy pass: bounds the temporaries whatever the clip length."""
+
+_RIDGE = 1e-3
+"""Weight of the pull towards the data's slopes, relative to the mean of the normal matrix's
+diagonal: negligible with many interior frames, decisive with one."""
+
+
+def _interior(lo, hi):
+    """Interior frame indices of segments (lo, hi) concatenated: (starts, segment id, frame index)."""
+    n_inner = hi - lo - 1
+    starts = np.concatenate(([0], np.cumsum(n_inner)[:-1])).astype(np.intp)
+    sid = np.repeat(np.arange(lo.shape[0]), n_inner)
+    idx = lo[sid] + 1 + (np.arange(sid.shape[0]) - starts[sid])
+    return starts, sid, idx
+
+
+def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
+    """Fit (or, with ``slopes`` given, only evaluate) Hermite segments of the groups' channels.
+
+    flat_values, budget : (c, G * n_frames); g, lo, hi : (S,) segments with >= 1 interior frame;
+    slopes : optional (slope_out at lo, slope_in at hi), each (c, S).
+    Returns (largest error / budget per segment (S,), frame of it (S,), slope_out (c, S), slope_in (c, S)).
+    """
+    starts, sid, idx = _interior(lo, hi)
+    base = g * n_frames
+    x0 = frames[lo]
+    h = frames[hi] - x0
+    s = (frames[idx] - x0[sid]) / h[sid]
+    om = 1.0 - s
+    w00 = (1.0 + 2.0 * s) * om * om
+    w01 = s * s * (3.0 - 2.0 * s)
+    w10 = s * om * om
+    w11 = -s * s * om
+    y0 = np.take(flat_values, base + lo, axis=1)
+    y1 = np.take(flat_values, base + hi, axis=1)
+    flat_idx = base[sid] + idx
+    r = np.take(flat_values, flat_idx, axis=1) - y0[:, sid] * w00 - y1[:, sid] * w01
+    allowed = np.take(budget, flat_idx, axis=1)
+    if slopes is None:
+        a_d = h * data_slopes_at(frames, flat_values, g, lo, n_frames)
+        b_d = h * data_slopes_at(frames, flat_values, g, hi, n_frames)
+        s11 = np.add.reduceat(w10 * w10, starts)
+        s12 = np.add.reduceat(w10 * w11, starts)
+        s22 = np.add.reduceat(w11 * w11, starts)
+        r1 = np.add.reduceat(r * w10, starts, axis=1)
+        r2 = np.add.reduceat(r * w11, starts, axis=1)
+        mu = _RIDGE * 0.5 * (s11 + s22) + 1e-300
+        d11, d22 = s11 + mu, s22 + mu
+        det = d11 * d22 - s12 * s12
+        q1, q2 = r1 + mu * a_d, r2 + mu * b_d
+        a_f = (d22 * q1 - s12 * q2) / det
+        b_f = (d11 * q2 - s12 * q1) / det
+        e = np.abs(r - a_f[:, sid] * w10 - b_f[:, sid] * w11)
+        e /= allowed
+        ratio = e[0] if e.shape[0] == 1 else np.max(e, axis=0)
+        seg_max = np.maximum.reduceat(ratio, starts)
+        a, b = a_f, b_f
+    else:
+        a, b = h * slopes[0], h * slopes[1]
+        ratio = np.max(np.abs(r - a[:, sid] * w10 - b[:, sid] * w11) / allowed, axis=0)
+        seg_max = np.maximum.reduceat(ratio, starts)
+    pos = np.arange(sid.shape[0])
+    first = np.minimum.reduceat(np.where(ratio == seg_max[sid], pos, pos.shape[0]), starts)
+    return seg_max, idx[first], a / h, b / h
+
+
+def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
+    """:func:`_segment_pass` over segments in chunks of about ``_CHUNK_FRAMES`` interior frames."""
+    n_inner = hi - lo - 1
+    c = flat_values.shape[0]
+    seg_max = np.empty(g.shape[0])
+    worst = np.empty(g.shape[0], dtype=np.intp)
+    out = np.empty((c, g.shape[0]))
+    inn = np.empty((c, g.shape[0]))
+    ends = np.cumsum(n_inner)
+    i = 0
+    while i < g.shape[0]:
+        j = int(np.searchsorted(ends, (ends[i - 1] if i else 0) + _CHUNK_FRAMES, side="right"))
+        j = max(j, i + 1)
+        part = slice(i, j)
+        sl = None if slopes is None else (slopes[0][:, part], slopes[1][:, part])
+        seg_max[part], worst[part], out[:, part], inn[:, part] = _segment_pass(
+            frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl)
+        i = j
+    return seg_max, worst, out, inn
+
+
+def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges=None):
+    """Key frames and fitted end slopes of every segment, for groups of channels sharing their keys.
+
+    Parameters
+    ----------
+    frames : (n_frames,) float64, increasing
+    flat_values : (c, n_groups * n_frames), group-major samples (c channels share a group's keys)
+    budget : (c, n_groups * n_frames), largest allowed |curve - sample| at every frame (> 0)
+    ranges : optional (g, lo, hi) int arrays: fit only these frame ranges (a key stays on both
+        ends of each); default: every group from its first to its last frame
+    align : bool
+        Afterwards, give a key one slope on both sides (ALIGNED handles) wherever both neighbouring
+        segments then stay within budget (two passes, every other key at a time).
+
+    Returns
+    -------
+    (seg_g, seg_lo, seg_hi, slope_out (c, S), slope_in (c, S)): the S segments sorted by group and
+    frame; slope_out is the slope leaving key ``seg_lo``, slope_in the slope arriving at ``seg_hi``.
+    Each segment stays within budget at its interior frames, evaluated as a cubic Hermite segment
+    (handles at thirds), unless it has no interior frame.
+    """
+    c = flat_values.shape[0]
+    if n_frames < 2:
+        raise ValueError("fit_keys needs at least two frames")
+    if ranges is None:
+        pend_g = np.arange(n_groups, dtype=np.intp)
+        pend_lo = np.zeros(n_groups, dtype=np.intp)
+        pend_hi = np.full(n_groups, n_frames - 1, dtype=np.intp)
+    else:
+        pend_g, pend_lo, pend_hi = (np.asarray(r, dtype=np.intp) for r in ranges)
+    acc = []
+    while pend_g.size:
+        short = pend_hi - pend_lo < 2
+        if short.any():
+            g, lo, hi = pend_g[short], pend_lo[short], pend_hi[short]
+            chord = ((np.take(flat_values, g * n_frames + hi, axis=1) - np.take(flat_values, g * n_frames + lo, axis=1))
+                     / (frames[hi] - frames[lo]))
+            acc.append((g, lo, hi, chord, chord))
+            pend_g, pend_lo, pend_hi = pend_g[~short], pend_lo[~short], pend_hi[~short]
+            if not pend_g.size:
+                break
+        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend_g, pend_lo, pend_hi)
+        ok = seg_max <= 1.0
+        acc.append((pend_g[ok], pend_lo[ok], pend_hi[ok], s_out[:, ok], s_in[:, ok]))
+        bad = ~ok
+        split = worst[bad]
+        pend_g = np.concatenate((pend_g[bad], pend_g[bad]))
+        pend_lo, pend_hi = np.concatenate((pend_lo[bad], split)), np.concatenate((split, pend_hi[bad]))
+    seg_g = np.concatenate([a[0] for a in acc])
+    seg_lo = np.concatenate([a[1] for a in acc])
+    seg_hi = np.concatenate([a[2] for a in acc])
+    slope_out = np.concatenate([a[3] for a in acc], axis=1).reshape(c, -1)
+    slope_in = np.concatenate([a[4] for a in acc], axis=1).reshape(c, -1)
+    order = np.argsort(seg_g * n_frames + seg_lo, kind="stable")
+    seg_g, seg_lo, seg_hi = seg_g[order], seg_lo[order], seg_hi[order]
+    slope_out, slope_in = slope_out[:, order], slope_in[:, order]
+    if align:
+        _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_out, slope_in)
+    return seg_g, seg_lo, seg_hi, slope_out, slope_in
+
+
+def _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_out, slope_in):
+    """In place: one slope on both sides of a key where both neighbouring segments allow it."""
+    junction = np.flatnonzero((seg_g[1:] == seg_g[:-1]) & (seg_lo[1:] == seg_hi[:-1]))   # segment j | j + 1
+    if not junction.size:
+        return
+    for parity in (0, 1):
+        j = junction[(np.arange(junction.size) % 2) == parity]
+        differs = np.any(slope_in[:, j] != slope_out[:, j + 1], axis=0)
+        j = j[differs]
+        if not j.size:
+            continue
+        h_l = frames[seg_hi[j]] - frames[seg_lo[j]]
+        h_r = frames[seg_hi[j + 1]] - frames[seg_lo[j + 1]]
+        common = (slope_in[:, j] * h_l + slope_out[:, j + 1] * h_r) / (h_l + h_r)
+        ok = np.ones(j.size, dtype=bool)
+        for seg, new_out, new_in in ((j, slope_out[:, j], common), (j + 1, common, slope_in[:, j + 1])):
+            inner = seg_hi[seg] - seg_lo[seg] > 1
+            if inner.any():
+                seg_max, _w, _o, _i = _chunked(frames, flat_values, budget, n_frames, seg_g[seg[inner]],
+                                               seg_lo[seg[inner]], seg_hi[seg[inner]],
+                                               (new_out[:, inner], new_in[:, inner]))
+                ok[inner] &= seg_max <= 1.0
+        j, common = j[ok], common[:, ok]
+        slope_in[:, j] = common
+        slope_out[:, j + 1] = common
