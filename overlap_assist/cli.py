@@ -472,18 +472,27 @@ def save_blend_atomic(bpy, path, compress=False):
     return path
 
 
-def cmd_bake(args, io):
-    if args.check:
-        return check_bake(import_bpy(), args, io.out)
+def output_target(args):
+    """(file to write, compress like the input) for a command that saves the file it read.
+
+    ``--out`` and ``--in-place`` exclude each other and one is needed; the input and the output are
+    checked before any work (outputs.py), so a refusal changes nothing.
+    """
     if args.in_place and args.out:
         raise CliError("use either --in-place or --out, not both")
     if not args.out and not args.in_place:
         raise CliError("say where to save the result with --out OUT.blend (or --in-place to overwrite the input)")
-    if not 0 <= args.tolerance_deg <= 10:
-        raise CliError(f"--tolerance-deg {args.tolerance_deg} is outside 0–10")
     outputs.check_input_file(args.file)
     target = outputs.in_place_target(args.file) if args.in_place else outputs.out_file_target(args.out, [args.file])
-    compress = outputs.is_compressed(args.file)
+    return target, outputs.is_compressed(args.file)
+
+
+def cmd_bake(args, io):
+    if args.check:
+        return check_bake(import_bpy(), args, io.out)
+    if not 0 <= args.tolerance_deg <= 10:
+        raise CliError(f"--tolerance-deg {args.tolerance_deg} is outside 0–10")
+    target, compress = output_target(args)
     bpy = import_bpy()
     from .blender import bake_layer
     from .blender.bake_ops import bake_chains
@@ -632,15 +641,9 @@ def _safe(name):
 def cmd_fix_flight(args, io):
     from .blender import flight_fix_layer, flight_jobs
     from .core.constants import CAUTION
-    if args.in_place and args.out:
-        raise CliError("use either --in-place or --out, not both")
-    if not args.out and not args.in_place:
-        raise CliError("say where to save the result with --out OUT.blend (or --in-place to overwrite the input)")
     if not 0 <= args.blend_frames <= 12:
         raise CliError(f"--blend-frames {args.blend_frames} is outside 0–12")
-    outputs.check_input_file(args.file)
-    target = outputs.in_place_target(args.file) if args.in_place else outputs.out_file_target(args.out, [args.file])
-    compress = outputs.is_compressed(args.file)
+    target, compress = output_target(args)
     bpy = import_bpy()
     from .blender.rig_motion import has_motion
     open_blend(bpy, args.file)
