@@ -276,11 +276,9 @@ def in_scene(bpy, scene):
 
 
 def chain_frame_range(obj, scene):
-    """The frames a bake covers: the file's stored bake range when it is on, else the scene's."""
-    s = obj.overlap_assist
-    if s.bake_use_range:
-        return s.bake_frame_start, s.bake_frame_end
-    return scene.frame_start, scene.frame_end
+    """The frames a bake covers (``frame_ranges.chain_range``: stored bake range, preview range, scene)."""
+    from .blender.frame_ranges import chain_range
+    return chain_range(obj, scene)
 
 
 def configure_chains(obj, scene, args):

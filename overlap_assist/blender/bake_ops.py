@@ -7,6 +7,7 @@ from ..core.errors import OverlapAssistError
 from . import bake, bake_layer
 from .selection import armature_poll, bone_selected
 from .op_errors import guarded
+from .frame_ranges import chain_range
 
 INTO_ACTION_WARNING = ("This replaces the rotation keys of the baked bones in your action over the baked "
                        "frames. Undo (Ctrl+Z) brings them back")
@@ -162,8 +163,7 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
             if not names:
                 raise OverlapAssistError("no chain has a selected bone: select chain bones or bake all chains")
         chains = chain_sim.active_chains(obj, names)
-        start, end = (s.bake_frame_start, s.bake_frame_end) if s.bake_use_range else \
-            (scene.frame_start, scene.frame_end)
+        start, end = chain_range(obj, scene)
         return obj, scene, chains, start, end
 
     def _finished(self, obj, n_chains, stats):

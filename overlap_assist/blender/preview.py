@@ -13,6 +13,7 @@ import numpy as np
 
 from ..core.rotations import quat_multiply
 from . import frame_guard
+from .frame_ranges import chain_range
 
 
 class PreviewCache:
@@ -83,10 +84,11 @@ class PreviewOwner:
         from . import chain_sim
         cache = self.caches[obj.name]
         chains = chain_sim.active_chains(obj)
+        start, end = chain_range(obj, scene)
         stale = (cache.sampled is None or cache.sampled.chain_names != [c.name for c in chains]
-                 or (cache.sampled.frames[0], cache.sampled.frames[-1]) != (scene.frame_start, scene.frame_end))
+                 or (cache.sampled.frames[0], cache.sampled.frames[-1]) != (start, end))
         if cache.sample_dirty or stale:
-            cache.sampled = chain_sim.sample_rig(obj, scene, chains, scene.frame_start, scene.frame_end)
+            cache.sampled = chain_sim.sample_rig(obj, scene, chains, start, end)
             cache.sample_dirty, cache.solve_dirty = False, True
         if cache.solve_dirty:
             cache.motion, cache.offsets = chain_sim.solve(cache.sampled, chain_sim.settings_for(obj, scene, chains))

@@ -57,7 +57,7 @@ class OverlapAssistBodySettings(bpy.types.PropertyGroup):
         name="Analyze blocked keys as splines", default=False,
         description="Evaluate stepped/constant keys as if they were Bézier, without changing the action")
     use_frame_range: BoolProperty(name="Custom range", default=False,
-                                  description="Analyze a chosen range instead of the scene's frame range")
+                                  description="Analyze a chosen range instead of the scene's playback range (its preview range when that is on)")
     frame_start: IntProperty(name="Start", default=1)
     frame_end: IntProperty(name="End", default=250)
     owned_markers: StringProperty(name="Markers", default="", options={'HIDDEN'},
@@ -111,7 +111,7 @@ class OverlapAssistSettings(bpy.types.PropertyGroup):
                                       description="Largest difference allowed between the keys and the simulation; "
                                                   "0 keeps a key on every frame")
     bake_use_range: BoolProperty(name="Custom range", default=False,
-                                 description="Bake a chosen range instead of the scene's frame range")
+                                 description="Bake (and preview) a chosen range instead of the scene's playback range (its preview range when that is on)")
     bake_frame_start: IntProperty(name="Start", default=1)
     bake_frame_end: IntProperty(name="End", default=250)
     bake_influence: FloatProperty(name="Influence", default=1.0, min=0.0, max=1.0, subtype='FACTOR',

@@ -13,6 +13,7 @@ from ..core import body_segments as segs
 from ..core.body_types import MotionSamples
 from ..core.constants import STANDARD_GRAVITY_MPS2
 from ..core.errors import InputError
+from .frame_ranges import body_range
 
 
 
@@ -26,10 +27,7 @@ def check_armature(obj):
 
 
 def frame_range(scene, settings):
-    if settings.use_frame_range:
-        start, end = settings.frame_start, settings.frame_end
-    else:
-        start, end = scene.frame_start, scene.frame_end
+    start, end = body_range(scene, settings)
     if end <= start:
         raise InputError(f"frame range {start}-{end} is empty: set an end frame after the start frame")
     return start, end

@@ -5,8 +5,7 @@ Lake & Comfort 2018, Strength Cond. J. 40(4):96-106): quiet stance (their "weigh
 unweighting, braking, propulsion, flight, landing; "recovery" is our name for what follows the
 landing; "drop" is an airborne phase entered without upward takeoff speed (stepping off a ledge).
 The airborne phases themselves come from foot contact (``foot_contact``) or the body's path
-(``ballistic_path``); ``find_flights`` (the load-threshold method with the midpoint rule) is kept
-for callers that have only a load curve.
+(``ballistic_path``).
 
 The countermovement is read from the body's vertical velocity, not from the load: the lowest
 point is where the velocity turns upward before takeoff, braking starts at the fastest descent
@@ -21,7 +20,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from .body_types import AnalysisSettings, Phase
-from .constants import MIN_TAKEOFF_SPEED_MPS, SURE_FLIGHT_LOAD
 
 RECOVERY_SETTLED_S = 0.25
 """Recovery ends once the load stays near 1 g this long (s); a judgement for keyed clips."""
@@ -41,13 +39,6 @@ class FlightEvents:
     kind: str = "jump"
 
 
-def _runs(mask: np.ndarray):
-    """(start, end) index pairs of runs of True, end inclusive."""
-    padded = np.concatenate(([False], mask, [False])).astype(np.int8)
-    d = np.diff(padded)
-    return list(zip(np.flatnonzero(d == 1), np.flatnonzero(d == -1) - 1))
-
-
 def _crossing_time(t: np.ndarray, y: np.ndarray, lo: int, hi: int, level: float, rising: bool) -> float:
     """First time in samples lo..hi where y crosses ``level`` in the given direction (linear interpolation)."""
     lo, hi = max(lo, 0), min(hi, y.size - 1)
@@ -56,41 +47,6 @@ def _crossing_time(t: np.ndarray, y: np.ndarray, lo: int, hi: int, level: float,
         if (a < 0 <= b) if rising else (a > 0 >= b):
             return float(t[i] + (t[i + 1] - t[i]) * (a / (a - b)))
     return float("nan")
-
-
-def find_flights(t_s: np.ndarray, load: np.ndarray, vz: np.ndarray, half_window: int, settings: AnalysisSettings):
-    """Airborne intervals with takeoff and touchdown at sub-sample precision.
-
-    Returns
-    -------
-    flights : list of FlightEvents
-    warnings : list of str
-    """
-    warnings = []
-    flights = []
-    n = load.size
-    reach = half_window + 1
-    for i0, i1 in _runs(load < settings.flight_load_max):
-        if i0 == 0 or i1 == n - 1:
-            warnings.append("the clip starts or ends in the air: that flight is not checked "
-                            "(extend the frame range to include takeoff and touchdown)")
-            continue
-        inside = load[i0:i1 + 1]
-        level_air = float(np.median(inside))
-        if vz[i0] < MIN_TAKEOFF_SPEED_MPS and level_air > SURE_FLIGHT_LOAD:
-            continue  # low load from rest: unweighting into a crouch, not a flight
-        before = float(load[max(i0 - reach, 0)])
-        after = float(load[min(i1 + reach, n - 1)])
-        t_to = _crossing_time(t_s, load, i0 - reach, i0, 0.5 * (before + level_air), rising=False)
-        t_td = _crossing_time(t_s, load, i1, i1 + reach, 0.5 * (after + level_air), rising=True)
-        if not np.isfinite(t_to):
-            t_to = float(t_s[i0])
-        if not np.isfinite(t_td):
-            t_td = float(t_s[i1])
-        if t_td - t_to < settings.min_flight_s:
-            continue
-        flights.append(FlightEvents(t_to, t_td))
-    return flights, warnings
 
 
 def jump_phases(t_s, load, vz, flights, settings: AnalysisSettings, fps: float, frame0: float):

@@ -60,6 +60,29 @@ def test_bake_matches_the_preview_and_remove_restores(rig):
     np.testing.assert_array_equal(_poses(rig, frames), animated)
 
 
+def test_the_preview_range_is_what_previews_and_bakes(rig):
+    # Before: the preview and the bake ignored the timeline's preview range (Blender's own
+    # "use preview range"): an animator playing frames 20-60 got a solve started at frame 1.
+    from overlap_assist.blender import preview
+    scene = bpy.context.scene
+    scene.use_preview_range, scene.frame_preview_start, scene.frame_preview_end = True, 20, 60
+    try:
+        frames = [24, 35, 44, 58]
+        op(rig, "toggle_preview")
+        cache = preview.PREVIEW.caches[rig.name]
+        previewed = _poses(rig, frames)
+        assert (cache.sampled.frames[0], cache.sampled.frames[-1]) == (20, 60)
+        op(rig, "toggle_preview")
+        op(rig, "bake_chains")
+        baked = _poses(rig, frames)
+        assert np.abs(baked - previewed).max() < 0.02   # the same solve (0.5° key tolerance)
+        keyed = [k.co[0] for fc in anim_data.all_action_fcurves(bpy.data.actions[bake_layer.bake_action_name(rig)])
+                 for k in fc.keyframe_points]
+        assert min(keyed) >= 20 and max(keyed) <= 60
+    finally:
+        scene.use_preview_range = False
+
+
 def test_analysis_after_a_bake_keeps_the_layer(rig):
     op(rig, "bake_chains")
     assert op(rig, "analyze_motion") == {'FINISHED'}

@@ -218,3 +218,29 @@ def test_stored_frame_ranges_are_honored(tmp_path):
     an = run_cli("analyze", str(path), "--json")
     frames = json.loads(an.stdout)["frames"]
     assert (frames[0], frames[-1]) == (3.0, 45.0)
+
+
+def test_the_preview_range_is_honored_when_no_range_is_stored(tmp_path):
+    # Blender's timeline "use preview range" is the range the animator plays: without a stored
+    # range, analyze, simulate and bake cover it (before: always the scene's full range).
+    scene = bpy.context.scene
+    scene.gravity = (0, 0, -9.80665)
+    obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
+    key_jump(obj, JumpSpec(forward_mps=1.0))
+    c = obj.overlap_assist.chains.add()
+    c.name = "tail"
+    for n in ("tail.001", "tail.002"):
+        c.bones.add().name = n
+    scene.use_preview_range, scene.frame_preview_start, scene.frame_preview_end = True, 6, 44
+    path = tmp_path / "previewed.blend"
+    try:
+        bpy.ops.wm.save_as_mainfile(filepath=str(path), copy=True)
+    finally:
+        scene.use_preview_range = False
+    sim = run_cli("simulate", str(path), "--json")
+    assert sim.returncode == 0, sim.stderr
+    assert (json.loads(sim.stdout)["frame_start"], json.loads(sim.stdout)["frame_end"]) == (6, 44)
+    an = run_cli("analyze", str(path), "--json")
+    assert an.returncode == 0, an.stderr
+    frames = json.loads(an.stdout)["frames"]
+    assert (frames[0], frames[-1]) == (6.0, 44.0)
