@@ -1,15 +1,11 @@
 """Choosing what the headless commands process: --scene, the armatures that move, rigs moved by a
 parent or a constraint, Rigify files, the file's stored frame range (real Blender, subprocesses)."""
 import json
-import pathlib
-import subprocess
-import sys
-import textwrap
 
 import bpy
 import numpy as np
 import pytest
-from blender_helpers import ROOT, run_cli
+from blender_helpers import generate_rigify_file, run_cli
 
 from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
 from overlap_assist.core.jump_curves import JumpSpec, jump_events, jump_position
@@ -108,39 +104,26 @@ def test_batch_takes_the_demo_file(demo_file, tmp_path):
     assert (tmp_path / "one" / "overlap_demo.analysis.json").is_file()
 
 
-RIGIFY_SCRIPT = textwrap.dedent("""
-    import sys, bpy, addon_utils, numpy as np
-    sys.path.insert(0, {root!r})
-    from overlap_assist.core.jump_curves import JumpSpec, jump_events, jump_position
-    for o in list(bpy.data.objects):
-        bpy.data.objects.remove(o)
-    addon_utils.enable("rigify", default_set=True)
-    bpy.ops.object.armature_human_metarig_add()
-    bpy.ops.pose.rigify_generate()
-    rig = bpy.data.objects["rig"]
-    ev = jump_events(JumpSpec())
-    frames = 1 + np.arange(int(np.ceil(ev["duration_s"] * 24)) + 1)
-    pos = jump_position(JumpSpec(), (frames - 1) / 24.0)
-    # The root control carries the whole rig, feet included (keying only the torso would leave the
-    # IK feet planted: no foot leaves the ground, so no flight is the right answer there).
-    pb = rig.pose.bones["root"]
-    for f, p in zip(frames, pos - pos[0]):
-        pb.location = tuple(p)
-        pb.keyframe_insert("location", frame=int(f))
-    bpy.context.scene.frame_start, bpy.context.scene.frame_end = 1, int(frames[-1])
-    bpy.ops.wm.save_as_mainfile(filepath={path!r})
-    import os
-    sys.stdout.flush()
-    os._exit(0)  # Blender 4.5 can hang at exit with Rigify's classes registered; the file is saved
-""")
+KEY_ROOT = """
+import numpy as np
+from overlap_assist.core.jump_curves import JumpSpec, jump_events, jump_position
+ev = jump_events(JumpSpec())
+frames = 1 + np.arange(int(np.ceil(ev["duration_s"] * 24)) + 1)
+pos = jump_position(JumpSpec(), (frames - 1) / 24.0)
+# The root control carries the whole rig, feet included (keying only the torso would leave the
+# IK feet planted: no foot leaves the ground, so no flight is the right answer there).
+pb = rig.pose.bones["root"]
+for f, p in zip(frames, pos - pos[0]):
+    pb.location = tuple(p)
+    pb.keyframe_insert("location", frame=int(f))
+bpy.context.scene.frame_start, bpy.context.scene.frame_end = 1, int(frames[-1])
+"""
 
 
 def test_rigify_file_with_metarig_and_rig(tmp_path):
     """Bundled Rigify (metarig + generated rig, the root control keyed): analyze and batch take the rig."""
     path = tmp_path / "hero_rigify.blend"
-    # In its own process and folder: enabling Rigify here would leave classes registered (4.5 exit hang).
-    subprocess.run([sys.executable, "-c", RIGIFY_SCRIPT.format(root=str(ROOT), path=str(path))], cwd=tmp_path,
-                   check=True, capture_output=True, timeout=300)
+    generate_rigify_file(path, after_generate=KEY_ROOT)   # metarig kept: the file holds both
     out = tmp_path / "out"
     batch = run_cli("batch", str(path), "--out", str(out))
     assert batch.returncode == 0, batch.stdout + batch.stderr

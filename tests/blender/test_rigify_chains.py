@@ -7,14 +7,11 @@ next one; each FK control after the first copies the previous one's rotation). R
 Blender's own evaluation of the generated rig after the bake (``scene.frame_set``, the DEF- bones'
 world matrices) against the solver's simulated directions.
 """
-import subprocess
-import sys
-import textwrap
 
 import bpy
 import numpy as np
 import pytest
-from blender_helpers import ROOT, op, run_cli, select_bones
+from blender_helpers import generate_rigify_file, op, run_cli, select_bones
 
 from overlap_assist.blender import anim_data, bake_layer
 
@@ -24,56 +21,42 @@ DEFORM_LIMIT_DEG = 1.0   # the issue: deform bones within 1° of the simulation 
 MEASURED = {}
 
 
-GENERATE = textwrap.dedent("""
-    import os, sys
-    import bpy
-    import addon_utils
-    sys.path.insert(0, {root!r})
-    from overlap_assist.blender.demo_scene import key_jump
-    from overlap_assist.core.jump_curves import JumpSpec
+EDIT_METARIG = """
+def chain(edit_bones, prefix, n, start, step, parent):
+    prev = parent
+    for i in range(n):
+        b = edit_bones.new(prefix if i == 0 else f"{prefix}.{i:03d}")
+        b.head = start
+        b.tail = tuple(s + d for s, d in zip(start, step))
+        b.parent, b.use_connect = prev, i > 0
+        prev, start = b, tuple(b.tail)
 
-    def chain(edit_bones, prefix, n, start, step, parent):
-        prev = parent
-        for i in range(n):
-            b = edit_bones.new(prefix if i == 0 else f"{{prefix}}.{{i:03d}}")
-            b.head = start
-            b.tail = tuple(s + d for s, d in zip(start, step))
-            b.parent, b.use_connect = prev, i > 0
-            prev, start = b, tuple(b.tail)
-
-    bpy.ops.wm.read_factory_settings(use_empty=True)
-    addon_utils.enable("rigify", default_set=True, handle_error=None)
-    bpy.ops.object.armature_basic_human_metarig_add()
-    meta = bpy.context.active_object
-    bpy.ops.object.mode_set(mode='EDIT')
-    eb = meta.data.edit_bones
-    head = eb["spine.006"]
-    x, y, z = head.head
-    chain(eb, "ponytail", 3, (0, y + 0.1, z + 0.1), (0, 0.06, -0.08), head)
-    chain(eb, "braid", 4, (0.06, y + 0.08, z + 0.05), (0.01, 0.04, -0.07), head)
-    bpy.ops.object.mode_set(mode='POSE')
-    meta.pose.bones["ponytail"].rigify_type = "basic.copy_chain"
-    meta.pose.bones["braid"].rigify_type = "limbs.simple_tentacle"
-    bpy.ops.object.mode_set(mode='OBJECT')
-    bpy.ops.pose.rigify_generate()
-    rig = bpy.data.objects["rig"]
-    bpy.data.objects.remove(meta)
-    bpy.context.scene.gravity = (0, 0, -9.80665)
-    key_jump(rig, JumpSpec(forward_mps=1.0), bone_name="torso")
-    bpy.ops.wm.save_as_mainfile(filepath={path!r})
-    sys.stdout.flush()
-    os._exit(0)   # the generated rig's UI script registered classes: 4.5 would hang at a normal exit
-""")
+bpy.ops.object.mode_set(mode='EDIT')
+eb = meta.data.edit_bones
+head = eb["spine.006"]
+x, y, z = head.head
+chain(eb, "ponytail", 3, (0, y + 0.1, z + 0.1), (0, 0.06, -0.08), head)
+chain(eb, "braid", 4, (0.06, y + 0.08, z + 0.05), (0.01, 0.04, -0.07), head)
+bpy.ops.object.mode_set(mode='POSE')
+meta.pose.bones["ponytail"].rigify_type = "basic.copy_chain"
+meta.pose.bones["braid"].rigify_type = "limbs.simple_tentacle"
+bpy.ops.object.mode_set(mode='OBJECT')
+"""
+KEY_TORSO = """
+from overlap_assist.blender.demo_scene import key_jump
+from overlap_assist.core.jump_curves import JumpSpec
+bpy.data.objects.remove(meta)
+bpy.context.scene.gravity = (0, 0, -9.80665)
+key_jump(rig, JumpSpec(forward_mps=1.0), bone_name="torso")
+"""
 
 
 @pytest.fixture(scope="session")
 def rigify_file(tmp_path_factory):
     """Generate the rig once from the bundled add-on (in its own process: generating runs the
     rig's UI script, which registers classes this session must not keep), key a jump on its torso."""
-    path = str(tmp_path_factory.mktemp("rigify") / "rigify_rig.blend")
-    subprocess.run([sys.executable, "-c", GENERATE.format(root=str(ROOT), path=path)], check=True,
-                   capture_output=True, timeout=600)
-    return path
+    return generate_rigify_file(tmp_path_factory.mktemp("rigify") / "rigify_rig.blend",
+                                EDIT_METARIG, KEY_TORSO, metarig="basic_human")
 
 
 def _open(path):
