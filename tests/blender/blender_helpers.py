@@ -105,3 +105,37 @@ def generate_rigify_file(path, edit_metarig="", after_generate="", metarig="huma
     subprocess.run([sys.executable, "-c", script], check=True, capture_output=True, timeout=timeout,
                    cwd=str(pathlib.Path(path).parent))
     return str(path)
+
+
+def world_bone_directions(obj, names, frames):
+    """Unit world y axes (the bones' directions) of ``names`` at ``frames``, as Blender evaluates
+    them (``scene.frame_set``, then the pose bones' matrices): shape (frames, bones, 3)."""
+    import numpy as np
+    scene = bpy.context.scene
+    out = []
+    for f in frames:
+        scene.frame_set(int(f))
+        world = np.array(obj.matrix_world)
+        out.append([(world @ np.array(obj.pose.bones[n].matrix))[:3, 1] for n in names])
+    out = np.array(out)
+    return out / np.linalg.norm(out, axis=-1, keepdims=True)
+
+
+TAIL = (("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
+        ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)))
+
+
+def tail_jumper(with_chain=True):
+    """The test humanoid "Hero" with a two-bone tail, a keyed jump (1 m/s forward) at standard
+    gravity and, with ``with_chain``, the tail as a chain named "tail" (default settings)."""
+    from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
+    from overlap_assist.core.jump_curves import JumpSpec
+    bpy.context.scene.gravity = (0, 0, -9.80665)
+    obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
+    key_jump(obj, JumpSpec(forward_mps=1.0))
+    if with_chain:
+        c = obj.overlap_assist.chains.add()
+        c.name = "tail"
+        for name, *_ in TAIL:
+            c.bones.add().name = name
+    return obj

@@ -4,25 +4,12 @@ import json
 import pathlib
 
 import bpy
-from blender_helpers import make_malicious_blend, run_cli
-
-from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
-from overlap_assist.core.jump_curves import JumpSpec
-
-TAIL = (("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
-        ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)))
+from blender_helpers import make_malicious_blend, run_cli, tail_jumper
 
 
 def make_clip(path, with_chain):
     bpy.ops.wm.read_factory_settings(use_empty=True)
-    bpy.context.scene.gravity = (0, 0, -9.80665)
-    obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
-    key_jump(obj, JumpSpec(forward_mps=1.0))
-    if with_chain:
-        c = obj.overlap_assist.chains.add()
-        c.name = "tail"
-        for n in ("tail.001", "tail.002"):
-            c.bones.add().name = n
+    tail_jumper(with_chain)
     bpy.ops.wm.save_as_mainfile(filepath=str(path), copy=True)
     return str(path)
 

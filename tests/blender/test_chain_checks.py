@@ -4,7 +4,7 @@ handled exactly (uneven object scale). Reference: Blender's own evaluation of th
 import bpy
 import numpy as np
 import pytest
-from blender_helpers import op, run_cli
+from blender_helpers import op, run_cli, world_bone_directions
 
 from overlap_assist.blender import bake_layer
 from overlap_assist.blender.bake_ops import bake_chains
@@ -125,17 +125,6 @@ def test_uneven_scale_of_a_parent_bone_is_refused_naming_it():
     assert not bake_layer.has_bake(obj)
 
 
-def _baked_directions(obj, names, frames):
-    scene = bpy.context.scene
-    out = []
-    for f in frames:
-        scene.frame_set(int(f))
-        world = np.array(obj.matrix_world)
-        out.append([(world @ np.array(obj.pose.bones[n].matrix))[:3, 1] for n in names])
-    out = np.array(out)
-    return out / np.linalg.norm(out, axis=-1, keepdims=True)
-
-
 @pytest.mark.parametrize("scale", [(3.0, 1.0, 1.0), (1.0, 1.0, 2.0), (1.0, 1.0, 1.0)])
 @pytest.mark.parametrize("tolerance_deg, allowed_deg", [
     (0.0, 0.05),   # a key on every frame: float32 keys and Blender's COMBINE rounding only (~0.04°)
@@ -156,7 +145,7 @@ def test_uneven_object_scale_bakes_the_simulated_directions(scale, tolerance_deg
     scene = bpy.context.scene
     stats, sampled, motion = bake_chains(obj, scene, list(obj.overlap_assist.chains), scene.frame_start,
                                          scene.frame_end, tolerance_deg)
-    got = _baked_directions(obj, NAMES, sampled.frames)
+    got = world_bone_directions(obj, NAMES, sampled.frames)
     err = np.degrees(np.arccos(np.clip(np.sum(got * motion.dirs[0], axis=-1), -1, 1)))
     swing = np.degrees(np.arccos(np.clip(np.sum(sampled.inputs[0].target_dirs * motion.dirs[0], axis=-1), -1, 1)))
     assert swing.max() > 10.0          # the chain does swing away from its animated directions
@@ -187,6 +176,6 @@ def test_a_child_of_constraint_between_keys_and_pose_is_solved_for():
     scene = bpy.context.scene
     stats, sampled, motion = bake_chains(obj, scene, list(obj.overlap_assist.chains), scene.frame_start,
                                          scene.frame_end, 0.0)
-    got = _baked_directions(obj, NAMES, sampled.frames)
+    got = world_bone_directions(obj, NAMES, sampled.frames)
     err = np.degrees(np.arccos(np.clip(np.sum(got * motion.dirs[0], axis=-1), -1, 1)))
     assert err.max() < 0.05, err.max()   # per-frame keys: float32 keys and COMBINE rounding only

@@ -5,9 +5,9 @@ import json
 import bpy
 import numpy as np
 import pytest
-from blender_helpers import generate_rigify_file, run_cli
+from blender_helpers import generate_rigify_file, run_cli, tail_jumper
 
-from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature, key_jump
+from overlap_assist.blender.demo_scene import HUMANOID_BONES, build_armature
 from overlap_assist.core.jump_curves import JumpSpec, jump_events, jump_position
 
 
@@ -173,19 +173,9 @@ def test_rig_moved_by_its_parent_a_child_of_or_the_object_is_analyzed(tmp_path, 
     assert fl["verdict"].startswith("ballistic")
 
 
-TAIL = (("tail.001", "hips", (0, 0.08, 0.98), (0, 0.20, 0.90)),
-        ("tail.002", "tail.001", (0, 0.20, 0.90), (0, 0.30, 0.78)))
-
-
 def test_stored_frame_ranges_are_honored(tmp_path):
     # Before: simulate and bake used the scene's range, whatever range the file stored for the bake.
-    bpy.context.scene.gravity = (0, 0, -9.80665)
-    obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
-    key_jump(obj, JumpSpec(forward_mps=1.0))
-    c = obj.overlap_assist.chains.add()
-    c.name = "tail"
-    for n in ("tail.001", "tail.002"):
-        c.bones.add().name = n
+    obj = tail_jumper()
     s = obj.overlap_assist
     s.bake_use_range, s.bake_frame_start, s.bake_frame_end = True, 5, 40
     s.body.use_frame_range, s.body.frame_start, s.body.frame_end = True, 3, 45
@@ -207,13 +197,7 @@ def test_the_preview_range_is_honored_when_no_range_is_stored(tmp_path):
     # Blender's timeline "use preview range" is the range the animator plays: without a stored
     # range, analyze, simulate and bake cover it (before: always the scene's full range).
     scene = bpy.context.scene
-    scene.gravity = (0, 0, -9.80665)
-    obj = build_armature("Hero", bones=HUMANOID_BONES + TAIL)
-    key_jump(obj, JumpSpec(forward_mps=1.0))
-    c = obj.overlap_assist.chains.add()
-    c.name = "tail"
-    for n in ("tail.001", "tail.002"):
-        c.bones.add().name = n
+    tail_jumper()
     scene.use_preview_range, scene.frame_preview_start, scene.frame_preview_end = True, 6, 44
     path = tmp_path / "previewed.blend"
     try:

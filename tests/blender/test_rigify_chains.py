@@ -11,7 +11,7 @@ world matrices) against the solver's simulated directions.
 import bpy
 import numpy as np
 import pytest
-from blender_helpers import generate_rigify_file, op, run_cli, select_bones
+from blender_helpers import generate_rigify_file, op, run_cli, select_bones, world_bone_directions
 
 from overlap_assist.blender import anim_data, bake_layer
 
@@ -66,17 +66,6 @@ def _open(path):
     return rig
 
 
-def _deform_directions(rig, names, frames):
-    scene = bpy.context.scene
-    out = []
-    for f in frames:
-        scene.frame_set(int(f))
-        world = np.array(rig.matrix_world)
-        out.append([(world @ np.array(rig.pose.bones[n].matrix))[:3, 1] for n in names])
-    out = np.array(out)
-    return out / np.linalg.norm(out, axis=-1, keepdims=True)
-
-
 def _angles_deg(a, b):
     return np.degrees(np.arccos(np.clip(np.sum(a * b, axis=-1), -1.0, 1.0)))
 
@@ -98,7 +87,7 @@ def test_chains_picked_on_deform_org_or_control_bones_bake_the_simulated_deform_
     act = bake_layer.find_bake(rig)[2]
     keyed = {fc.data_path.split('"')[1] for fc in anim_data.all_action_fcurves(act)}
     assert keyed == set(controls)
-    deform = _deform_directions(rig, ["DEF-" + n for n in controls], sampled.frames)
+    deform = world_bone_directions(rig, ["DEF-" + n for n in controls], sampled.frames)
     err = _angles_deg(deform, motion.dirs[0])
     swing = _angles_deg(sampled.inputs[0].target_dirs, motion.dirs[0])
     MEASURED[f"{prefix or 'controls '}{controls[0]}"] = (float(err.max()), float(swing.max()))
