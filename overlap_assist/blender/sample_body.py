@@ -221,10 +221,11 @@ def splined_keys(obj, enabled):
         bpy.data.actions.remove(temp)
 
 
-def sample_bones(obj, scene, bone_names, frames, progress=None):
+def sample_bones(obj, scene, bone_names, frames, progress=None, x_axes=False):
     """World head and tail positions (scene units) of ``bone_names`` at each (fractional) frame.
 
-    Returns dict name -> (n, 3) heads, dict name -> (n, 3) tails.
+    Returns dict name -> (n, 3) heads, dict name -> (n, 3) tails, and with ``x_axes`` also
+    dict name -> (n, 3) unit world x axes (the bones' roll, for segment orientations).
     """
     pbones = obj.pose.bones
     index = {b.name: i for i, b in enumerate(pbones)}
@@ -232,8 +233,7 @@ def sample_bones(obj, scene, bone_names, frames, progress=None):
     lengths = np.array([obj.data.bones[n].length for n in bone_names], dtype=float)
     nb = len(pbones)
     buf = np.empty(nb * 16, dtype=np.float32)
-    heads = np.empty((len(frames), len(idx), 3))
-    tails = np.empty_like(heads)
+    out = np.empty((3 if x_axes else 2, len(frames), len(idx), 3))
     saved = (scene.frame_current, scene.frame_subframe)
     try:
         for k, f in enumerate(frames):
@@ -244,14 +244,17 @@ def sample_bones(obj, scene, bone_names, frames, progress=None):
             world = np.array(obj.matrix_world, dtype=float)
             h = mats[:, :3, 3]
             t = h + mats[:, :3, 1] * lengths[:, None]
-            heads[k] = h @ world[:3, :3].T + world[:3, 3]
-            tails[k] = t @ world[:3, :3].T + world[:3, 3]
+            out[0, k] = h @ world[:3, :3].T + world[:3, 3]
+            out[1, k] = t @ world[:3, :3].T + world[:3, 3]
+            if x_axes:
+                out[2, k] = mats[:, :3, 0] @ world[:3, :3].T
             if progress is not None and k % 16 == 0:
                 progress(k / len(frames))
     finally:
         scene.frame_set(saved[0], subframe=saved[1])
-    return ({n: heads[:, i] for i, n in enumerate(bone_names)},
-            {n: tails[:, i] for i, n in enumerate(bone_names)})
+    if x_axes:
+        out[2] /= np.linalg.norm(out[2], axis=-1, keepdims=True)
+    return tuple({n: out[j][:, i] for i, n in enumerate(bone_names)} for j in range(out.shape[0]))
 
 
 def keys_are_dense(obj, start, end):

@@ -12,7 +12,7 @@ from ..core import body_segments as segs
 from ..core import segment_inertia as inertia
 from ..core.angular_momentum import SegmentMotion, body_axes_from_landmarks
 from ..core.errors import InputError
-from .sample_body import check_armature, frame_range, sample_times, splined_keys
+from .sample_body import check_armature, frame_range, sample_bones, sample_times, splined_keys
 
 # The bone whose x axis gives each segment's mediolateral direction (the trunk uses its landmarks).
 _SEGMENT_ROLE = {"head_neck": "head", "upper_arm": "upper_arm", "forearm": "forearm", "hand": "hand",
@@ -40,36 +40,6 @@ def segment_roles(obj, settings):
     return roles, table
 
 
-def _sample_frames(obj, scene, names, frames, progress):
-    """World heads, tails and unit x axes (scene units), each {name: (n, 3)}."""
-    pbones = obj.pose.bones
-    index = {b.name: i for i, b in enumerate(pbones)}
-    idx = np.array([index[n] for n in names], dtype=int)
-    lengths = np.array([obj.data.bones[n].length for n in names], dtype=float)
-    nb = len(pbones)
-    buf = np.empty(nb * 16, dtype=np.float32)
-    out = np.empty((3, len(frames), len(idx), 3))
-    saved = (scene.frame_current, scene.frame_subframe)
-    try:
-        for k, f in enumerate(frames):
-            whole = int(np.floor(f))
-            scene.frame_set(whole, subframe=float(f - whole))
-            pbones.foreach_get("matrix", buf)
-            mats = buf.reshape(nb, 4, 4).transpose(0, 2, 1)[idx].astype(float)
-            world = np.array(obj.matrix_world, dtype=float)
-            head = mats[:, :3, 3]
-            tail = head + mats[:, :3, 1] * lengths[:, None]
-            out[0, k] = head @ world[:3, :3].T + world[:3, 3]
-            out[1, k] = tail @ world[:3, :3].T + world[:3, 3]
-            out[2, k] = mats[:, :3, 0] @ world[:3, :3].T
-            if progress is not None and k % 16 == 0:
-                progress(k / len(frames))
-    finally:
-        scene.frame_set(saved[0], subframe=saved[1])
-    out[2] /= np.linalg.norm(out[2], axis=-1, keepdims=True)
-    return tuple({n: out[j][:, i] for i, n in enumerate(names)} for j in range(3))
-
-
 def segment_motion(obj, scene, settings, progress=None, frames=None):
     """Sample ``obj``'s segments at ``frames`` (default: the frame range at the Samples per frame
     setting, the even grid the spin check's angular velocities need).
@@ -89,7 +59,7 @@ def segment_motion(obj, scene, settings, progress=None, frames=None):
     scale = scene.unit_settings.scale_length
     names = sorted({b for bl in roles.values() for b in bl})
     with splined_keys(obj, settings.spline_blocked_keys):
-        heads, tails, xaxes = _sample_frames(obj, scene, names, frames, progress)
+        heads, tails, xaxes = sample_bones(obj, scene, names, frames, progress, x_axes=True)
     heads = {k: v * scale for k, v in heads.items()}
     tails = {k: v * scale for k, v in tails.items()}
     lm = segs.landmark_positions(roles, heads, tails)
