@@ -24,6 +24,7 @@ Run:  .venv/bpy5.3/bin/python bench/bench_keys_vs_host.py
 from __future__ import annotations
 
 import math
+import os
 import pathlib
 import sys
 import time
@@ -42,7 +43,7 @@ N_FRAMES = 250
 N_RIGIFY_BONES = 85
 MARGINS = np.geomspace(1e-5, 0.3, 16)
 FPS = 24.0
-DUMP = ""   # set to a path prefix to save the reducer's inputs (profiling)
+DUMP = os.environ.get("BENCH_KEYS_DUMP", "")   # a path prefix: save the reducer's inputs (profiling)
 
 
 # ---------------------------------------------------------------------------------------------
