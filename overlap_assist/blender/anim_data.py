@@ -133,11 +133,14 @@ def _enum_value(struct, prop, identifier):
     return struct.bl_rna.properties[prop].enum_items[identifier].value
 
 
-def read_keyframes(fc):
-    """All keys of ``fc`` as {attribute: array, shape (n,) or (n, 2)} (see KEYFRAME_ATTRIBUTES)."""
+def read_keyframes(fc, names=None):
+    """All keys of ``fc`` as {attribute: array, shape (n,) or (n, 2)} (see KEYFRAME_ATTRIBUTES);
+    only the attributes in ``names`` when given."""
     n = len(fc.keyframe_points)
     out = {}
     for name, dtype, width in KEYFRAME_ATTRIBUTES:
+        if names is not None and name not in names:
+            continue
         buf = np.empty(n * width, dtype=dtype)
         fc.keyframe_points.foreach_get(name, buf)
         out[name] = buf.reshape(n, width) if width > 1 else buf
