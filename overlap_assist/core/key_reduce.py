@@ -635,7 +635,8 @@ _SHRINK_MIN, _SHRINK_MAX = 0.3, 0.8
 # angle moves by at most twice the sum of the component changes.
 _F32_MARGIN_REL = 2.0**-20
 
-_EVAL_CHUNK = 1 << 16   # channel-frames evaluated per pass when checking (bounds the temporaries)
+_EVAL_CHUNK = 1 << 13   # channel-frames evaluated per pass when checking (bounds the temporaries;
+# measured: passes of 8k-16k values keep them in the CPU caches, 20-25 % faster than 64k)
 
 
 @dataclass(frozen=True, slots=True)
