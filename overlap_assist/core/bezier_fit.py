@@ -195,12 +195,11 @@ def _interior(lo, hi):
     return starts, sid, idx
 
 
-def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data_slopes=None):
+def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
     """Fit (or, with ``slopes`` given, only evaluate) Hermite segments of the groups' channels.
 
     flat_values, budget : (c, G * n_frames); g, lo, hi : (S,) segments with >= 1 interior frame;
     slopes : optional (slope_out at lo, slope_in at hi), each (c, S).
-    data_slopes : (c, G * n_frames) :func:`data_slopes_at` every frame (needed without ``slopes``).
     Returns (largest error / budget per segment (S,), frame of it (S,), slope_out (c, S), slope_in (c, S)).
     """
     starts, sid, idx = _interior(lo, hi)
@@ -219,8 +218,8 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None,
     r = np.take(flat_values, flat_idx, axis=1) - y0[:, sid] * w00 - y1[:, sid] * w01
     allowed = np.take(budget, flat_idx, axis=1)
     if slopes is None:
-        a_d = h * np.take(data_slopes, base + lo, axis=1)
-        b_d = h * np.take(data_slopes, base + hi, axis=1)
+        a_d = h * data_slopes_at(frames, flat_values, g, lo, n_frames)   # at the ends only: no
+        b_d = h * data_slopes_at(frames, flat_values, g, hi, n_frames)   # array over every frame
         s11 = np.add.reduceat(w10 * w10, starts)
         s12 = np.add.reduceat(w10 * w11, starts)
         s22 = np.add.reduceat(w11 * w11, starts)
@@ -246,7 +245,7 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None,
     return seg_max, idx[first], a / h, b / h
 
 
-def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data_slopes=None):
+def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
     """:func:`_segment_pass` over segments in chunks of about ``_CHUNK_FRAMES`` interior frames."""
     n_inner = hi - lo - 1
     c = flat_values.shape[0]
@@ -262,7 +261,7 @@ def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data
         part = slice(i, j)
         sl = None if slopes is None else (slopes[0][:, part], slopes[1][:, part])
         seg_max[part], worst[part], out[:, part], inn[:, part] = _segment_pass(
-            frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl, data_slopes)
+            frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl)
         i = j
     return seg_max, worst, out, inn
 
@@ -297,9 +296,6 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges
         pend_hi = np.full(n_groups, n_frames - 1, dtype=np.intp)
     else:
         pend_g, pend_lo, pend_hi = (np.asarray(r, dtype=np.intp) for r in ranges)
-    every = np.arange(n_frames)
-    data_slopes = data_slopes_at(frames, flat_values, np.repeat(np.arange(n_groups), n_frames),
-                                 np.tile(every, n_groups), n_frames)   # once: every pass gathers from it
     acc = []
     while pend_g.size:
         short = pend_hi - pend_lo < 2
@@ -311,8 +307,7 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges
             pend_g, pend_lo, pend_hi = pend_g[~short], pend_lo[~short], pend_hi[~short]
             if not pend_g.size:
                 break
-        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend_g, pend_lo, pend_hi,
-                                               data_slopes=data_slopes)
+        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend_g, pend_lo, pend_hi)
         ok = seg_max <= 1.0
         acc.append((pend_g[ok], pend_lo[ok], pend_hi[ok], s_out[:, ok], s_in[:, ok]))
         bad = ~ok

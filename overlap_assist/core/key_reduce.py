@@ -879,6 +879,12 @@ def _bad_pairs(bad_frames, tracks_failed, curve0, n_comp, kind, want_kind):
     return np.concatenate(curves), np.concatenate(frames_)
 
 
+def _row_blocks(n_rows, n_frames):
+    """Slices of rows holding about ``_EVAL_CHUNK`` values each (at least one row)."""
+    step = max(1, _EVAL_CHUNK // max(n_frames, 1))
+    return [slice(a, min(a + step, n_rows)) for a in range(0, n_rows, step)]
+
+
 class _Plans:
     """Every curve's plan and the flat inputs of the fit (see the comment above ``_NO_CURVE``)."""
 
@@ -916,13 +922,18 @@ class _Plans:
         curves = self.curves_of(track_ids)
         kind = self.kind[curves]
         decide = (kind != _SEGMENTS) if partial else np.ones(curves.shape[0], dtype=bool)
-        v = self.values[curves]
-        b_min = np.min(self.budget[curves], axis=1)
-        near = self.has_rest[curves] & (np.max(np.abs(v - self.rest[curves, None]), axis=1) <= b_min)
+        b_min, off_rest, spread = (np.empty(curves.shape[0]) for _ in range(3))
+        for rows in _row_blocks(curves.shape[0], n):   # blocks of rows: bounded temporaries
+            v = self.values[curves[rows]]
+            b_min[rows] = np.min(self.budget[curves[rows]], axis=1)
+            off_rest[rows] = np.max(np.abs(v - self.rest[curves[rows], None]), axis=1)
+            spread[rows] = np.ptp(v, axis=1)
+        b_min = b_min.astype(np.float32)
+        near = self.has_rest[curves] & (off_rest <= b_min)
         starts = np.concatenate(([0], np.cumsum(self.n_comp[track_ids])[:-1]))   # each track's first curve
         whole = np.repeat(np.logical_and.reduceat(near, starts), self.n_comp[track_ids])
         near = np.where(self.is_quat[curves], whole, near)   # a quaternion keeps all four curves or none
-        flat = (np.ptp(v, axis=1) <= 2.0 * b_min) & ~near
+        flat = (spread <= 2.0 * b_min) & ~near
         fresh = decide & ~near & ~flat
         if shared_frames:
             any_fit = np.repeat(np.logical_or.reduceat(fresh, starts), self.n_comp[track_ids])
@@ -940,13 +951,11 @@ class _Plans:
         range_curve = [curves[fresh]]
         range_lo = [np.zeros(int(fresh.sum()), dtype=np.intp)]
         range_hi = [np.full(int(fresh.sum()), n - 1, dtype=np.intp)]
-        partial_curve = np.zeros(0, dtype=np.intp)
         if partial:
             pc, pf = _bad_pairs(bad_frames, track_ids, self.curve0, self.n_comp, self.kind, _SEGMENTS)
             pc, pf = pc[~redo_mask[pc]], pf[~redo_mask[pc]]
             held = np.unique(_segments_holding(self.segs, n, pc, pf))
             keep[held] = False
-            partial_curve = np.unique(pc)
             range_curve.append(self.segs.curve[held])
             range_lo.append(self.segs.lo[held])
             range_hi.append(self.segs.hi[held])
@@ -955,20 +964,12 @@ class _Plans:
             parts.extend(self._fit_shared(curves[fresh], fit_keys))
         else:
             rc, rlo, rhi = np.concatenate(range_curve), np.concatenate(range_lo), np.concatenate(range_hi)
-            if rc.size:
-                # Groups in the order (track, refit before fresh, component): the alignment pass
-                # alternates over the junctions in this order.
-                job = np.unique(rc)
-                is_fresh = ~np.isin(job, partial_curve)
-                job = job[np.lexsort((job, is_fresh, self.track_of[job]))]
-                slot = np.empty(self.values.shape[0], dtype=np.intp)
-                slot[job] = np.arange(job.shape[0])
-                order = np.lexsort((rlo, slot[rc]))
-                g, rlo, rhi = slot[rc][order], rlo[order], rhi[order]
+            if rc.size:   # every curve is a group of the flat arrays (views: nothing copied)
+                order = np.lexsort((rlo, rc))
                 seg_g, seg_lo, seg_hi, s_out, s_in = fit_keys(
-                    self.frames, self.values[job].reshape(1, -1), self.budget[job].reshape(1, -1), job.shape[0], n,
-                    ranges=(g, rlo, rhi))
-                parts.append(_Segments(job[seg_g], seg_lo, seg_hi, s_out[0], s_in[0]))
+                    self.frames, self.values.reshape(1, -1), self.budget.reshape(1, -1), self.values.shape[0], n,
+                    ranges=(rc[order], rlo[order], rhi[order]))
+                parts.append(_Segments(seg_g, seg_lo, seg_hi, s_out[0], s_in[0]))
         self.segs = _Segments.merged(parts, n)
         if not partial:
             return None
@@ -979,7 +980,7 @@ class _Plans:
             selection[int(t)] = None
         if range_curve[1].size:
             rt = self.track_of[range_curve[1]]
-            mark = np.zeros((len(self.tracks), n + 1), dtype=np.int64)
+            mark = np.zeros((len(self.tracks), n + 1), dtype=np.int32)
             np.add.at(mark, (rt, range_lo[1]), 1)
             np.add.at(mark, (rt, range_hi[1] + 1), -1)
             inside = np.cumsum(mark, axis=1)[:, :n] > 0
@@ -1026,13 +1027,16 @@ class _Plans:
         held = _segments_holding(self.segs, n, pc, pf)
         rows = np.unique(pc)
         slot = np.searchsorted(rows, pc)
-        mark = np.zeros((rows.shape[0], n + 1), dtype=np.int64)
-        np.add.at(mark, (slot, self.segs.lo[held]), 1)
-        np.add.at(mark, (slot, self.segs.hi[held] + 1), -1)
-        inside = np.cumsum(mark, axis=1)[:, :n] > 0
+        lo, hi = self.segs.lo[held], self.segs.hi[held]
         scale = np.array([f32[int(t)] for t in self.track_of[rows]], dtype=np.float32)
-        block = self.budget[rows]
-        self.budget[rows] = np.where(inside, block * scale[:, None], block)
+        for part in _row_blocks(rows.shape[0], n):   # blocks of rows: bounded temporaries
+            pick = (slot >= part.start) & (slot < part.stop)
+            mark = np.zeros((part.stop - part.start, n + 1), dtype=np.int32)
+            np.add.at(mark, (slot[pick] - part.start, lo[pick]), 1)
+            np.add.at(mark, (slot[pick] - part.start, hi[pick] + 1), -1)
+            inside = np.cumsum(mark, axis=1)[:, :n] > 0
+            block = self.budget[rows[part]]
+            self.budget[rows[part]] = np.where(inside, block * scale[part, None], block)
 
     def rotation_keys(self, t, keys, bounds, max_error) -> RotationKeys:
         chans = []
