@@ -166,8 +166,7 @@ def run_one(prefix, path, out_dir, stem, preset_file, scene=None, armature=None,
         stamp = stamp_for(path, preset_file)
         stamp.update(scene=scene, armature=armature)
         stamp["fix"] = bool(fix)
-        if shared_frames:   # only when set: stamps of earlier runs stay valid
-            stamp["shared_key_frames"] = True
+        stamp["shared_key_frames"] = bool(shared_frames)   # a change of layout bakes again
         if up_to_date(out_dir, stem, stamp):
             row.update(status="skipped", message="outputs up to date")
             return row
