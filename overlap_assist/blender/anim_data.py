@@ -213,6 +213,9 @@ def _handle_type_values(handle_type, n):
     if isinstance(handle_type, str):
         return np.full(n, _enum_value(bpy.types.Keyframe, "handle_left_type", handle_type), dtype=np.int32)
     names = np.asarray(handle_type)
+    aligned = names == "ALIGNED"
+    if _BEZIER is not None and np.all(aligned | (names == "FREE")):   # the reducer's two types: no lookups
+        return np.where(aligned, _BEZIER["ALIGNED"], _BEZIER["FREE"]).astype(np.int32)
     out = np.empty(n, dtype=np.int32)
     for name in np.unique(names):
         out[names == name] = _enum_value(bpy.types.Keyframe, "handle_left_type", str(name))

@@ -218,8 +218,9 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None)
     r = np.take(flat_values, flat_idx, axis=1) - y0[:, sid] * w00 - y1[:, sid] * w01
     allowed = np.take(budget, flat_idx, axis=1)
     if slopes is None:
-        a_d = h * data_slopes_at(frames, flat_values, g, lo, n_frames)   # at the ends only: no
-        b_d = h * data_slopes_at(frames, flat_values, g, hi, n_frames)   # array over every frame
+        # Data slopes at the ends only (no array over every frame), both ends in one call.
+        ends = data_slopes_at(frames, flat_values, np.concatenate((g, g)), np.concatenate((lo, hi)), n_frames)
+        a_d, b_d = h * ends[:, :g.shape[0]], h * ends[:, g.shape[0]:]
         s11 = np.add.reduceat(w10 * w10, starts)
         s12 = np.add.reduceat(w10 * w11, starts)
         s22 = np.add.reduceat(w11 * w11, starts)
