@@ -131,7 +131,7 @@ def worker_prefix():
 
 
 def worker_command(prefix, path, out_dir, stem, preset_file, scene=None, armature=None, details_file=None,
-                   fix=False):
+                   fix=False, shared_frames=False):
     args = ["process", path, "--out-dir", out_dir, "--stem", stem]
     if preset_file:
         args += ["--preset-file", preset_file]
@@ -143,13 +143,15 @@ def worker_command(prefix, path, out_dir, stem, preset_file, scene=None, armatur
         args += ["--details-file", details_file]
     if fix:
         args.append("--fix")
+    if shared_frames:
+        args.append("--shared-key-frames")
     return [*prefix, *args]
 
 
 BUG_HINT = "this is a bug in Overlap Assist: please report it with the file and batch_log.json"
 
 
-def run_one(prefix, path, out_dir, stem, preset_file, scene=None, armature=None, fix=False):
+def run_one(prefix, path, out_dir, stem, preset_file, scene=None, armature=None, fix=False, shared_frames=False):
     """Process one input in a worker process; returns a log row (unexpected errors: ``details``)."""
     start = time.perf_counter()
     row = {"input": path, "stem": stem, "status": "failed", "message": "", "seconds": 0.0}
@@ -164,12 +166,14 @@ def run_one(prefix, path, out_dir, stem, preset_file, scene=None, armature=None,
         stamp = stamp_for(path, preset_file)
         stamp.update(scene=scene, armature=armature)
         stamp["fix"] = bool(fix)
+        stamp["shared_key_frames"] = bool(shared_frames)   # a change of layout bakes again
         if up_to_date(out_dir, stem, stamp):
             row.update(status="skipped", message="outputs up to date")
             return row
         fd, details = tempfile.mkstemp(prefix=".overlap_assist-details-", suffix=".txt")
         os.close(fd)
-        proc = subprocess.run(worker_command(prefix, path, out_dir, stem, preset_file, scene, armature, details, fix),
+        proc = subprocess.run(worker_command(prefix, path, out_dir, stem, preset_file, scene, armature, details, fix,
+                                             shared_frames),
                               capture_output=True, text=True, timeout=WORKER_TIMEOUT_S, stdin=subprocess.DEVNULL)
         if proc.returncode != 0:
             lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
@@ -216,12 +220,14 @@ def write_json_atomic(path, data):
     os.replace(tmp, path)
 
 
-def run_batch(patterns, out_dir, preset_file=None, jobs=None, out=sys.stdout, scene=None, armature=None, fix=False):
+def run_batch(patterns, out_dir, preset_file=None, jobs=None, out=sys.stdout, scene=None, armature=None, fix=False,
+              shared_frames=False):
     """Process every input; returns (rows, exit status). Prints a summary table to ``out``.
 
     ``jobs``: worker processes at once (default and maximum: the CPU count). Files this batch
     wrote into ``out_dir`` (outputs of earlier runs) are left out of the inputs. ``fix``: each
-    worker also fixes the flights and writes ``<stem>.fixed.blend``.
+    worker also fixes the flights and writes ``<stem>.fixed.blend``. ``shared_frames``: bake with
+    all rotation channels of a bone keyed on the same frames.
     """
     out_dir = os.path.abspath(out_dir)
     os.makedirs(out_dir, exist_ok=True)
@@ -236,7 +242,7 @@ def run_batch(patterns, out_dir, preset_file=None, jobs=None, out=sys.stdout, sc
     jobs = max(1, min(jobs or cpu_count(), cpu_count(), len(paths) or 1))
     prefix = worker_prefix()
     with concurrent.futures.ThreadPoolExecutor(max_workers=jobs) as pool:
-        futures = [pool.submit(run_one, prefix, p, out_dir, s, preset_file, scene, armature, fix)
+        futures = [pool.submit(run_one, prefix, p, out_dir, s, preset_file, scene, armature, fix, shared_frames)
                    for p, s in zip(paths, stems)]
         rows = [f.result() for f in futures]
     width = max([len(r["input"]) for r in rows] + [5])

@@ -76,6 +76,7 @@ def build_parser():
     add_target_options(b, "default: the armature that has chains (or the --chain bones)")
     add_chain_options(b)
     b.add_argument("--tolerance-deg", type=float, default=0.5, help="key reduction tolerance in degrees (0 = every frame)")
+    add_key_layout_option(b)
     b.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     b.add_argument("--check", action="store_true",
                    help="only say whether the file's bake still matches its animation (exit 1 if stale or none)")
@@ -88,6 +89,7 @@ def build_parser():
                    help="files processed at once (worker processes; default and maximum: the CPU count)")
     t.add_argument("--fix", action="store_true", help="also fix each flight (center of mass on the ballistic arc) "
                                                      "and write <stem>.fixed.blend beside the baked file")
+    add_key_layout_option(t)
     w = sub.add_parser("process", help="one file of a batch: analysis JSON, report and (with chains) a baked copy")
     w.add_argument("file", help=".blend file to read (never modified)")
     w.add_argument("--out-dir", required=True, help="folder for the outputs")
@@ -96,10 +98,17 @@ def build_parser():
     add_target_options(w, "default: every armature that moves")
     w.add_argument("--details-file", help=argparse.SUPPRESS)
     w.add_argument("--fix", action="store_true", help="fix the flights first and save <stem>.fixed.blend")
+    add_key_layout_option(w)
     d = sub.add_parser("demo", help="build our demo character and jumps, analyze them, write the outputs")
     d.add_argument("--out", default="out/demo", help="output folder (created; existing outputs are replaced)")
     add_fix_flight_parser(sub)
     return p
+
+
+def add_key_layout_option(p):
+    p.add_argument("--shared-key-frames", action="store_true",
+                   help="key all rotation channels of a bone on the same frames (more keys, easier to retime by "
+                        "hand); default: each channel only where it needs keys (fewest keys)")
 
 
 def add_body_options(p):
@@ -500,7 +509,8 @@ def cmd_bake(args, io):
         with in_scene(bpy, scene):
             chains = configure_chains(obj, scene, args)
             start, end = chain_frame_range(obj, scene)
-            stats, sampled, motion = bake_chains(obj, scene, chains, start, end, args.tolerance_deg)
+            stats, sampled, motion = bake_chains(obj, scene, chains, start, end, args.tolerance_deg,
+                                                 shared_frames=args.shared_key_frames)
             obj.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
         saved = save_blend_atomic(bpy, target, compress)
         if args.json:
@@ -547,7 +557,8 @@ def cmd_batch(args, io):
         presets.load_preset_file(args.preset_file)  # refuse a bad preset before any work
     out_dir = outputs.out_folder_target(args.out)
     _, status = run_batch(args.inputs, out_dir, os.path.abspath(args.preset_file) if args.preset_file else None,
-                          jobs, io.out, scene=args.scene, armature=args.armature, fix=args.fix)
+                          jobs, io.out, scene=args.scene, armature=args.armature, fix=args.fix,
+                          shared_frames=args.shared_key_frames)
     return status
 
 
@@ -604,7 +615,8 @@ def cmd_process(args, io):
                         for c in chains:
                             c.apply_preset(doc, fps)
                     start, end = chain_frame_range(obj, scene)
-                    stats, sampled, motion = bake_chains(obj, scene, chains, start, end, 0.5)
+                    stats, sampled, motion = bake_chains(obj, scene, chains, start, end, 0.5,
+                                                         shared_frames=args.shared_key_frames)
                     obj.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
                     keys = baked_keys_by_chain(obj, sampled, stats.n_frames)
                     summary += f"; {stats.summary()}"

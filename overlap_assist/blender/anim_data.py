@@ -133,11 +133,14 @@ def _enum_value(struct, prop, identifier):
     return struct.bl_rna.properties[prop].enum_items[identifier].value
 
 
-def read_keyframes(fc):
-    """All keys of ``fc`` as {attribute: array, shape (n,) or (n, 2)} (see KEYFRAME_ATTRIBUTES)."""
+def read_keyframes(fc, names=None):
+    """All keys of ``fc`` as {attribute: array, shape (n,) or (n, 2)} (see KEYFRAME_ATTRIBUTES);
+    only the attributes in ``names`` when given."""
     n = len(fc.keyframe_points)
     out = {}
     for name, dtype, width in KEYFRAME_ATTRIBUTES:
+        if names is not None and name not in names:
+            continue
         buf = np.empty(n * width, dtype=dtype)
         fc.keyframe_points.foreach_get(name, buf)
         out[name] = buf.reshape(n, width) if width > 1 else buf
@@ -210,6 +213,9 @@ def _handle_type_values(handle_type, n):
     if isinstance(handle_type, str):
         return np.full(n, _enum_value(bpy.types.Keyframe, "handle_left_type", handle_type), dtype=np.int32)
     names = np.asarray(handle_type)
+    aligned = names == "ALIGNED"
+    if _BEZIER is not None and np.all(aligned | (names == "FREE")):   # the reducer's two types: no lookups
+        return np.where(aligned, _BEZIER["ALIGNED"], _BEZIER["FREE"]).astype(np.int32)
     out = np.empty(n, dtype=np.int32)
     for name in np.unique(names):
         out[names == name] = _enum_value(bpy.types.Keyframe, "handle_left_type", str(name))

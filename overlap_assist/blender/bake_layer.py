@@ -132,13 +132,16 @@ def check_layerable(obj):
 # The body's animation, for the stale check
 # ---------------------------------------------------------------------------------------------
 
+_HASHED_KEY_ATTRIBUTES = ("co", "handle_left", "handle_right", "interpolation", "easing")
+
+
 def _hash_fcurves(h, fcurves):
     for fc in sorted(fcurves, key=lambda c: (c.data_path, c.array_index)):
         if fc.data_path.startswith(OWN_PROPERTY_PREFIX):
             continue
         h.update(f"{fc.data_path}[{fc.array_index}]{int(fc.mute)}{fc.extrapolation}".encode())
-        keys = anim_data.read_keyframes(fc)
-        for name in ("co", "handle_left", "handle_right", "interpolation", "easing"):
+        keys = anim_data.read_keyframes(fc, _HASHED_KEY_ATTRIBUTES)
+        for name in _HASHED_KEY_ATTRIBUTES:
             h.update(keys[name].tobytes())
         h.update(str(len(fc.modifiers)).encode())
 

@@ -81,8 +81,10 @@ def chain_drives(obj, chains):
     return drives
 
 
-def bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False):
+def bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False, shared_frames=False):
     """The bake as a generator: yields the fraction done, returns (BakeStats, SampledRig, ChainMotion).
+
+    ``shared_frames``: key all rotation channels of a bone on the same frames (see ``bake.bake_offsets``).
 
     Stages: which bones take the keys (``rig_drive``), sampling the animated rig (the long part;
     closing the generator there, a cancelled bake, leaves the scene as it was), the solver, the
@@ -119,14 +121,16 @@ def bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_a
     stats = bake.bake_offsets(obj, sampled.frames.astype(int), by_bone,
                               tolerance_deg=tolerance_deg, into_action=into_action,
                               influence=obj.overlap_assist.bake_influence, scene=scene,
-                              tolerance_by_bone_deg=tighter)
+                              tolerance_by_bone_deg=tighter, shared_frames=shared_frames)
     return stats, sampled, motion
 
 
-def bake_chains(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False, progress=None):
+def bake_chains(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action=False, progress=None,
+                shared_frames=False):
     """Sample, solve and bake ``chains``; returns (BakeStats, SampledRig, ChainMotion)."""
     from .chain_sim import run_to_end
-    return run_to_end(bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action), progress)
+    return run_to_end(bake_steps(obj, scene, chains, frame_start, frame_end, tolerance_deg, into_action,
+                                 shared_frames), progress)
 
 
 @guarded
@@ -182,7 +186,9 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
             self.report({'ERROR'}, str(exc))
             return {'CANCELLED'}
         self._obj, self._n = obj, len(chains)
-        self._steps = bake_steps(obj, scene, chains, start, end, obj.overlap_assist.bake_tolerance_deg)
+        settings = obj.overlap_assist
+        self._steps = bake_steps(obj, scene, chains, start, end, settings.bake_tolerance_deg,
+                                 shared_frames=settings.bake_shared_frames)
         wm = context.window_manager
         wm.progress_begin(0, 100)
         self._timer = wm.event_timer_add(0.01, window=context.window)
@@ -223,9 +229,11 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
         wm.progress_begin(0, 100)
         try:
             obj, scene, chains, start, end = self._job(context)
-            stats, _, _ = bake_chains(obj, scene, chains, start, end, obj.overlap_assist.bake_tolerance_deg,
+            settings = obj.overlap_assist
+            stats, _, _ = bake_chains(obj, scene, chains, start, end, settings.bake_tolerance_deg,
                                       into_action=self.into_action,
-                                      progress=lambda f: wm.progress_update(int(100 * f)))
+                                      progress=lambda f: wm.progress_update(int(100 * f)),
+                                      shared_frames=settings.bake_shared_frames)
         except OverlapAssistError as exc:
             self.report({'ERROR'}, str(exc))
             return {'CANCELLED'}

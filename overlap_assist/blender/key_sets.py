@@ -86,17 +86,20 @@ def channel_values(offsets, jobs):
     if plain_quats:   # offsets as they are on the COMBINE layer, hemisphere-continuous from identity
         stacked = continuous(np.stack([offsets[n] for n in plain_quats]), _IDENTITY)
         values.update(zip(plain_quats, stacked))
+    conjugated = [n for n, j in jobs.items() if n not in values and j.mode == 'QUATERNION' and j.how == LAYERED]
+    if conjugated:   # U ∘ offset ∘ U⁻¹ of all such bones in one batch
+        u = np.stack([jobs[n].basis for n in conjugated])
+        u = u / np.linalg.norm(u, axis=2, keepdims=True)
+        u_inv = u * np.array([1.0, -1.0, -1.0, -1.0])
+        stacked = np.stack([offsets[n] for n in conjugated])
+        values.update(zip(conjugated, continuous(quat_multiply(quat_multiply(u, stacked), u_inv), _IDENTITY)))
+    absolute = [n for n, j in jobs.items() if n not in values and j.mode == 'QUATERNION']
+    if absolute:
+        basis = np.stack([jobs[n].basis for n in absolute])
+        composed = quat_multiply(basis, np.stack([offsets[n] for n in absolute]))
+        values.update(zip(absolute, continuous(composed, basis[:, 0])))
     for name, job in jobs.items():
-        if name in values:
-            continue
-        q_off = offsets[name]
-        if job.mode == 'QUATERNION' and job.how == LAYERED:
-            u = job.basis / np.linalg.norm(job.basis, axis=1, keepdims=True)
-            u_inv = u * np.array([1.0, -1.0, -1.0, -1.0])
-            values[name] = continuous(quat_multiply(quat_multiply(u, q_off), u_inv), _IDENTITY)
-        elif job.mode == 'QUATERNION':
-            values[name] = continuous(quat_multiply(job.basis, q_off), job.basis[0])
-        else:
+        if name not in values:
             euler_jobs.setdefault(job.mode, []).append(name)
     for order, names in euler_jobs.items():   # one batched composition per Euler order
         bases = np.stack([jobs[n].basis for n in names])

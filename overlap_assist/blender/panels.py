@@ -211,6 +211,7 @@ class VIEW3D_PT_overlap_assist_bake(OverlapPanelMixin, bpy.types.Panel):
         s = obj.overlap_assist
         layout.prop(s, "bake_scope")
         layout.prop(s, "bake_tolerance_deg")
+        layout.prop(s, "bake_shared_frames")
         layout.prop(s, "bake_use_range")
         if s.bake_use_range:
             row = layout.row(align=True)

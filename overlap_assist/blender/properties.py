@@ -110,6 +110,10 @@ class OverlapAssistSettings(bpy.types.PropertyGroup):
     bake_tolerance_deg: FloatProperty(name="Key tolerance (°)", default=0.5, min=0.0, max=10.0,
                                       description="Largest difference allowed between the keys and the simulation; "
                                                   "0 keeps a key on every frame")
+    bake_shared_frames: BoolProperty(
+        name="Shared key frames", default=False,
+        description="Key all rotation channels of a bone on the same frames (more keys, easier to retime by "
+                    "hand); off, each channel is keyed only where it needs keys (fewest keys)")
     bake_use_range: BoolProperty(name="Custom range", default=False,
                                  description="Bake (and preview) a chosen range instead of the scene's playback range (its preview range when that is on)")
     bake_frame_start: IntProperty(name="Start", default=1)

@@ -7,21 +7,24 @@ from ..core.effective_gravity import up_axis
 
 
 def baked_keys_by_chain(obj, sampled, n_frames):
-    """Chain name -> (keys a per-frame bake would write, keys written), counted on the bake action."""
-    from . import anim_data, bake_layer
+    """Chain name -> (keys a per-frame bake would write, keys written), counted on the bake action
+    on the bones each chain's keys go on (``rig_drive.key_bones``: the controls that drive a
+    constrained chain, e.g. Rigify's FK controls, else the chain's own bones)."""
+    from . import anim_data, bake_layer, rig_drive
     found = bake_layer.find_bake(obj)
     if found is None:
         return {}
-    per_bone = {}
+    written = {}
     for fc in anim_data.all_action_fcurves(found[2]):
         if fc.data_path.startswith('pose.bones["'):
             bone = fc.data_path.split('"')[1]
-            curves, keys = per_bone.get(bone, (0, 0))
-            per_bone[bone] = (curves + 1, keys + len(fc.keyframe_points))
+            written[bone] = written.get(bone, 0) + len(fc.keyframe_points)
+    pose = obj.pose.bones
     out = {}
     for cname, names in zip(sampled.chain_names, sampled.bone_names):
-        curves = sum(per_bone.get(b, (0, 0))[0] for b in names)
-        out[cname] = (curves * n_frames, sum(per_bone.get(b, (0, 0))[1] for b in names))
+        keyed = [b for b in rig_drive.key_bones(obj, names) if b in pose]
+        channels = sum(4 if pose[b].rotation_mode == 'QUATERNION' else 3 for b in keyed)
+        out[cname] = (channels * n_frames, sum(written.get(b, 0) for b in keyed))
     return out
 
 

@@ -33,7 +33,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["round_float32", "correct_handles", "evaluate_segments", "evaluate_curves", "data_slopes_at"]
+__all__ = ["round_float32", "correct_handles", "evaluate_segments", "evaluate_curves", "evaluate_pairs",
+           "data_slopes_at"]
 
 
 def round_float32(a) -> np.ndarray:
@@ -109,32 +110,43 @@ def evaluate_curves(key_x, key_y, left, right, curve_of_key, n_curves, frames) -
     """
     frames = np.asarray(frames, dtype=np.float64)
     n = frames.shape[0]
+    return evaluate_pairs(key_x, key_y, left, right, curve_of_key, n_curves, np.repeat(np.arange(n_curves), n),
+                          np.tile(frames, n_curves)).reshape(n_curves, n)
+
+
+def evaluate_pairs(key_x, key_y, left, right, curve_of_key, n_curves, curve_q, frame_q) -> np.ndarray:
+    """:func:`evaluate_curves` at arbitrary (curve, frame) pairs: curve ``curve_q[i]`` at frame
+    ``frame_q[i]``, (m,) each; returns (m,) values."""
+    frame_q = np.asarray(frame_q, dtype=np.float64)
+    curve_q = np.asarray(curve_q, dtype=np.intp)
     counts = np.bincount(curve_of_key, minlength=n_curves)
     starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
     last = starts + counts - 1
     # Position of every (curve, frame) among the keys: keys are sorted by (curve, frame).
-    span = float(frames[-1] - frames[0]) + float(np.max(key_x) - np.min(key_x)) + 4.0
-    origin = min(float(frames[0]), float(np.min(key_x))) - 1.0
+    span = float(np.max(frame_q) - np.min(frame_q)) + float(np.max(key_x) - np.min(key_x)) + 4.0
+    origin = min(float(np.min(frame_q)), float(np.min(key_x))) - 1.0
     key_code = curve_of_key * span + (key_x - origin)
-    query = (np.arange(n_curves)[:, None] * span + (frames - origin)[None, :]).ravel()
-    curve_q = np.repeat(np.arange(n_curves), n)
+    query = curve_q * span + (frame_q - origin)
     seg = np.searchsorted(key_code, query, side="right") - 1
-    seg = np.clip(seg, starts[curve_q], last[curve_q])
-    on_key = key_x[seg] == np.tile(frames, n_curves)
-    before = np.tile(frames, n_curves) <= key_x[starts[curve_q]]
-    after = np.tile(frames, n_curves) >= key_x[last[curve_q]]
-    seg = np.minimum(seg, np.maximum(last[curve_q] - 1, starts[curve_q]))
-    nxt = np.minimum(seg + 1, last[curve_q])
+    first_q, last_q = starts[curve_q], last[curve_q]
+    seg = np.clip(seg, first_q, last_q)
+    on_key = key_x[seg] == frame_q
+    before = frame_q <= key_x[first_q]
+    after = frame_q >= key_x[last_q]
+    seg = np.minimum(seg, np.maximum(last_q - 1, first_q))
+    nxt = np.minimum(seg + 1, last_q)
     out = key_y[seg].copy()
     inside = ~(on_key | before | after) & (nxt > seg)
     if inside.any():
         s, e = seg[inside], nxt[inside]
         x0, y0, x1, y1 = key_x[s], key_y[s], key_x[e], key_y[e]
-        hx0, hy0, hx1, hy1 = correct_handles(x0, y0, right[s, 0], right[s, 1], left[e, 0], left[e, 1], x1, y1)
-        out[inside] = evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, np.tile(frames, n_curves)[inside])
-    out = np.where(before, key_y[starts[curve_q]], out)
-    out = np.where(after, key_y[last[curve_q]], out)
-    return out.reshape(n_curves, n)
+        hx0, hy0, hx1, hy1 = right[s, 0], right[s, 1], left[e, 0], left[e, 1]
+        overlap = np.abs(x0 - hx0) + np.abs(x1 - hx1) > x1 - x0
+        if overlap.any():   # only there does Blender's correction change anything
+            hx0, hy0, hx1, hy1 = correct_handles(x0, y0, hx0, hy0, hx1, hy1, x1, y1)
+        out[inside] = evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame_q[inside])
+    out = np.where(before, key_y[first_q], out)
+    return np.where(after, key_y[last_q], out)
 
 
 def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
@@ -165,8 +177,9 @@ def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
 # Fitting: recursive splitting with least-squares handle heights
 # ---------------------------------------------------------------------------------------------
 
-_CHUNK_FRAMES = 1 << 16
-"""Interior frames evaluated per numpy pass: bounds the temporaries whatever the clip length."""
+_CHUNK_FRAMES = 1 << 14
+"""Interior frames evaluated per numpy pass: bounds the temporaries whatever the clip length
+(measured: 16k keeps them in the CPU caches, ~20 % faster than 64k on the bench's Rigify inputs)."""
 
 _RIDGE = 1e-3
 """Weight of the pull towards the data's slopes, relative to the mean of the normal matrix's
@@ -205,8 +218,9 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None)
     r = np.take(flat_values, flat_idx, axis=1) - y0[:, sid] * w00 - y1[:, sid] * w01
     allowed = np.take(budget, flat_idx, axis=1)
     if slopes is None:
-        a_d = h * data_slopes_at(frames, flat_values, g, lo, n_frames)
-        b_d = h * data_slopes_at(frames, flat_values, g, hi, n_frames)
+        # Data slopes at the ends only (no array over every frame), both ends in one call.
+        ends = data_slopes_at(frames, flat_values, np.concatenate((g, g)), np.concatenate((lo, hi)), n_frames)
+        a_d, b_d = h * ends[:, :g.shape[0]], h * ends[:, g.shape[0]:]
         s11 = np.add.reduceat(w10 * w10, starts)
         s12 = np.add.reduceat(w10 * w11, starts)
         s22 = np.add.reduceat(w11 * w11, starts)

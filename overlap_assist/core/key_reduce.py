@@ -635,7 +635,8 @@ _SHRINK_MIN, _SHRINK_MAX = 0.3, 0.8
 # angle moves by at most twice the sum of the component changes.
 _F32_MARGIN_REL = 2.0**-20
 
-_EVAL_CHUNK = 1 << 16   # channel-frames evaluated per pass when checking (bounds the temporaries)
+_EVAL_CHUNK = 1 << 13   # channel-frames evaluated per pass when checking (bounds the temporaries;
+# measured: passes of 8k-16k values keep them in the CPU caches, 20-25 % faster than 64k)
 
 
 @dataclass(frozen=True, slots=True)
@@ -688,44 +689,88 @@ class RotationKeys:
         return sum(ch.n_keys for ch in self.channels if ch is not None)
 
 
-def _channel_keys(frames, values, key_idx, slope_in, slope_out) -> ChannelKeys:
-    """Keys on ``key_idx`` with the sample values, handles at thirds with the given slopes."""
-    x = frames[key_idx]
-    y = values[key_idx]
-    if x.shape[0] == 1:
-        return ChannelKeys(x, y, np.array([[x[0] - 1.0, y[0]]]), np.array([[x[0] + 1.0, y[0]]]), np.ones(1, bool))
+# Curves of many tracks are handled as flat arrays: curve ``curve0[t] + i`` is component i of
+# track t; a curve's plan is its kind (_NO_CURVE, _ONE_KEY or _SEGMENTS) and, for _SEGMENTS, its
+# Hermite segments (curve, lo, hi, slope_out, slope_in) sorted by (curve, lo). All bookkeeping of a
+# round (plans, keys, budgets) is one set of numpy operations over every curve, not a loop over them.
+
+_NO_CURVE, _ONE_KEY, _SEGMENTS = 0, 1, 2
+
+
+@dataclass(frozen=True, slots=True)
+class _Segments:
+    curve: np.ndarray     # (S,) int
+    lo: np.ndarray        # (S,) frame index of the key starting the segment
+    hi: np.ndarray        # (S,) frame index of the key ending it
+    s_out: np.ndarray     # (S,) slope leaving lo
+    s_in: np.ndarray      # (S,) slope arriving at hi
+
+    def take(self, mask) -> "_Segments":
+        return _Segments(self.curve[mask], self.lo[mask], self.hi[mask], self.s_out[mask], self.s_in[mask])
+
+    def code(self, n_frames) -> np.ndarray:
+        return self.curve.astype(np.int64) * n_frames + self.lo
+
+    @staticmethod
+    def merged(parts, n_frames) -> "_Segments":
+        curve, lo, hi, s_out, s_in = (np.concatenate([getattr(p, f) for p in parts])
+                                      for f in ("curve", "lo", "hi", "s_out", "s_in"))
+        order = np.argsort(curve.astype(np.int64) * n_frames + lo, kind="stable")
+        return _Segments(curve[order], lo[order], hi[order], s_out[order], s_in[order])
+
+
+_NO_SEGMENTS = _Segments(*(np.zeros(0, dtype=np.intp),) * 3, np.zeros(0), np.zeros(0))
+
+
+@dataclass(frozen=True, slots=True)
+class _FlatKeys:
+    """Keys of many curves, curve after curve (curve ids increasing), handles at thirds."""
+
+    curve: np.ndarray     # (K,) int
+    x: np.ndarray         # (K,)
+    y: np.ndarray         # (K,)
+    left: np.ndarray      # (K, 2)
+    right: np.ndarray     # (K, 2)
+    aligned: np.ndarray   # (K,) bool
+
+    def channel(self, a, b) -> ChannelKeys:
+        return ChannelKeys(self.x[a:b], self.y[a:b], self.left[a:b], self.right[a:b], self.aligned[a:b])
+
+
+def _flat_keys(frames, values_flat, segs, const_curve, const_value) -> _FlatKeys:
+    """Keys of segmented curves (on their segments' ends, the sample values) and of one-key curves
+    (``const_value`` at the first frame, flat handles one frame either side)."""
+    n = frames.shape[0]
+    first = np.ones(segs.curve.shape[0], dtype=bool)
+    first[1:] = segs.curve[1:] != segs.curve[:-1]
+    last = np.ones(segs.curve.shape[0], dtype=bool)
+    last[:-1] = first[1:]
+    arrive = np.empty_like(segs.s_in)   # slope arriving at each segment's first key
+    arrive[1:] = segs.s_in[:-1]
+    arrive = np.where(first, segs.s_out, arrive)
+    k_curve = np.concatenate((segs.curve, segs.curve[last], const_curve))
+    k_idx = np.concatenate((segs.lo, segs.hi[last], np.zeros(const_curve.shape[0], dtype=np.intp)))
+    k_out = np.concatenate((segs.s_out, segs.s_in[last], np.zeros(const_curve.shape[0])))
+    k_in = np.concatenate((arrive, segs.s_in[last], np.zeros(const_curve.shape[0])))
+    k_y = np.concatenate((values_flat[segs.curve, segs.lo], values_flat[segs.curve[last], segs.hi[last]],
+                          np.asarray(const_value, dtype=np.float64)))
+    order = np.argsort(k_curve.astype(np.int64) * n + k_idx, kind="stable")
+    k_curve, k_idx, k_out, k_in, y = k_curve[order], k_idx[order], k_out[order], k_in[order], k_y[order]
+    x = frames[k_idx]
+    same_next = np.zeros(x.shape[0], dtype=bool)
+    same_next[:-1] = k_curve[1:] == k_curve[:-1]
+    same_prev = np.zeros(x.shape[0], dtype=bool)
+    same_prev[1:] = same_next[:-1]
     gap = np.diff(x)
-    h_prev = np.concatenate((gap[:1], gap)) / 3.0
-    h_next = np.concatenate((gap, gap[-1:])) / 3.0
-    left = np.stack((x - h_prev, y - slope_in * h_prev), axis=1)
-    right = np.stack((x + h_next, y + slope_out * h_next), axis=1)
-    aligned = np.abs(slope_in - slope_out) <= 1e-12 * (1.0 + np.abs(slope_in))
-    return ChannelKeys(x, y, left, right, aligned)
-
-
-def _constant_keys(frame, value) -> ChannelKeys:
-    return _channel_keys(np.array([float(frame)]), np.array([float(value)]), np.array([0]), np.zeros(1), np.zeros(1))
-
-
-def _evaluate_channel_set(frames, keys_list, rest_values):
-    """(m, n) Blender evaluation of curves (float32 controls); None entries give ``rest_values``."""
-    from .bezier_fit import evaluate_curves, round_float32
-    out = np.empty((len(keys_list), frames.shape[0]))
-    live = [i for i, k in enumerate(keys_list) if k is not None]
-    for i, k in enumerate(keys_list):
-        if k is None:
-            out[i] = rest_values[i]
-    per_pass = max(1, _EVAL_CHUNK // frames.shape[0])
-    for p in range(0, len(live), per_pass):
-        part = live[p:p + per_pass]
-        ks = [keys_list[i] for i in part]
-        kx = round_float32(np.concatenate([k.frames for k in ks]))
-        ky = round_float32(np.concatenate([k.values for k in ks]))
-        left = round_float32(np.concatenate([k.handle_left for k in ks]))
-        right = round_float32(np.concatenate([k.handle_right for k in ks]))
-        curve_of = np.repeat(np.arange(len(ks)), [k.n_keys for k in ks])
-        out[part] = evaluate_curves(kx, ky, left, right, curve_of, len(ks), frames)
-    return out
+    gap_next = np.concatenate((gap, [3.0]))
+    gap_prev = np.concatenate(([3.0], gap))
+    # End keys mirror their one neighbouring segment; a lone key gets handles one frame either side.
+    h_next = np.where(same_next, gap_next, np.where(same_prev, gap_prev, 3.0)) / 3.0
+    h_prev = np.where(same_prev, gap_prev, np.where(same_next, gap_next, 3.0)) / 3.0
+    left = np.stack((x - h_prev, y - k_in * h_prev), axis=1)
+    right = np.stack((x + h_next, y + k_out * h_next), axis=1)
+    aligned = np.abs(k_in - k_out) <= 1e-12 * (1.0 + np.abs(k_in))
+    return _FlatKeys(k_curve, x, y, left, right, aligned)
 
 
 def _angle_between(qa, qb):
@@ -733,181 +778,282 @@ def _angle_between(qa, qb):
     return _quaternion_angle_error(qa, qb / np.linalg.norm(qb, axis=0, keepdims=True))
 
 
-def _tracks_errors(frames, tracks, keys_of_tracks):
-    """Per track: (rotation angle per frame between the evaluated curves and the targets, float32
-    allowance in rad for Blender's own arithmetic). Tracks are evaluated in batches of about
-    ``_EVAL_CHUNK`` channel-frames."""
-    per_batch = max(1, _EVAL_CHUNK // (4 * frames.shape[0]))
+def _measure(frames, tracks, track_ids, curve0, keys, rest_flat, top_eval, selection=None):
+    """Per track of ``track_ids``: (rotation angle between Blender's evaluation of the keys and the
+    targets at the selected frames, float32 allowance in rad for Blender's own arithmetic).
+
+    ``selection``: {track: frame indices} to evaluate (default: every frame). Curves without keys
+    hold ``rest_flat``. ``top_eval`` (C,), the largest |value| evaluated so far per curve, is
+    raised in place (the allowance uses it: frames not evaluated again keep their old values).
+    Tracks are evaluated in batches of about ``_EVAL_CHUNK`` channel-frames."""
+    from .bezier_fit import evaluate_pairs, round_float32
+    n = frames.shape[0]
+    every = np.arange(n)
+    bounds = np.searchsorted(keys.curve, np.arange(rest_flat.shape[0] + 1))
+    counts_all = np.diff(bounds)
+    heights = np.maximum(np.abs(keys.left[:, 1] - keys.y), np.abs(keys.right[:, 1] - keys.y))
     out = []
-    for b in range(0, len(tracks), per_batch):
-        out.extend(_batch_errors(frames, tracks[b:b + per_batch], keys_of_tracks[b:b + per_batch]))
+    batch, size = [], 0
+    for pos, t in enumerate(track_ids):
+        sel = every if selection is None or selection.get(t) is None else selection[t]
+        batch.append((t, sel))
+        size += 4 * sel.shape[0]
+        if size >= _EVAL_CHUNK or pos == len(track_ids) - 1:
+            out.extend(_batch_errors(frames, tracks, batch, curve0, keys, bounds, counts_all, heights, rest_flat,
+                                     top_eval, round_float32, evaluate_pairs))
+            batch, size = [], 0
     return out
 
 
-def _batch_errors(frames, tracks, keys_of_tracks):
+def _batch_errors(frames, tracks, batch, curve0, keys, bounds, counts_all, heights, rest_flat, top_eval,
+                  round_float32, evaluate_pairs):
     from .rotations import euler_to_quat
-    flat_keys, flat_rest, first_row = [], [], []
-    for track, keys in zip(tracks, keys_of_tracks):
-        first_row.append(len(flat_keys))
-        flat_keys.extend(keys)
-        flat_rest.extend(track.rest if track.rest is not None else np.zeros(track.values.shape[1]))
-    evaluated_all = _evaluate_channel_set(frames, flat_keys, flat_rest)      # (m, n)
+    rows = np.concatenate([np.arange(curve0[t], curve0[t] + tracks[t].values.shape[1]) for t, _sel in batch])
+    sels = [sel for t, sel in batch for _c in range(tracks[t].values.shape[1])]         # per row
+    widths = np.array([s.shape[0] for s in sels])
+    row_start = np.concatenate(([0], np.cumsum(widths)[:-1]))
+    frame_idx = np.concatenate(sels)
+    row_of = np.repeat(np.arange(rows.shape[0]), widths)
+    evaluated = rest_flat[rows][row_of]                                                 # (M,)
+    live = np.flatnonzero(counts_all[rows] > 0)
+    if live.size:
+        key_sel = np.concatenate([np.arange(bounds[rows[i]], bounds[rows[i] + 1]) for i in live])
+        compact = np.full(rows.shape[0], -1, dtype=np.intp)
+        compact[live] = np.arange(live.size)
+        q = compact[row_of] >= 0
+        evaluated[q] = evaluate_pairs(round_float32(keys.x[key_sel]), round_float32(keys.y[key_sel]),
+                                      round_float32(keys.left[key_sel]), round_float32(keys.right[key_sel]),
+                                      np.repeat(np.arange(live.size), counts_all[rows[live]]), live.size,
+                                      compact[row_of[q]], frames[frame_idx[q]])
     # Float32 allowance per component: largest value, 3 x largest handle height, largest basis angle.
-    top = np.max(np.abs(evaluated_all), axis=1)
-    live = [i for i, k in enumerate(flat_keys) if k is not None]
-    if live:
-        heights = np.concatenate([np.maximum(np.abs(flat_keys[i].handle_left[:, 1] - flat_keys[i].values),
-                                             np.abs(flat_keys[i].handle_right[:, 1] - flat_keys[i].values))
-                                  for i in live])
-        counts = np.array([flat_keys[i].n_keys for i in live])
-        top[live] += 3.0 * np.maximum.reduceat(heights, np.concatenate(([0], np.cumsum(counts)[:-1])))
-    out = [None] * len(tracks)
+    top = np.maximum(top_eval[rows], np.maximum.reduceat(np.abs(evaluated), row_start))
+    top_eval[rows] = top
+    top = top.copy()
+    if live.size:
+        top[live] += 3.0 * np.maximum.reduceat(heights[key_sel],
+                                               np.concatenate(([0], np.cumsum(counts_all[rows[live]])[:-1])))
+    out = [None] * len(batch)
     by_mode = {}
-    for t, track in enumerate(tracks):
-        by_mode.setdefault(track.mode, []).append(t)
-    n = frames.shape[0]
+    for j, (t, _sel) in enumerate(batch):
+        by_mode.setdefault(tracks[t].mode, []).append(j)
+    first_row = np.concatenate(([0], np.cumsum([tracks[t].values.shape[1] for t, _s in batch])[:-1]))
     for mode, members in by_mode.items():
         c = 4 if mode == "QUATERNION" else 3
-        rows = np.concatenate([np.arange(first_row[t], first_row[t] + c) for t in members])
-        evaluated = evaluated_all[rows].reshape(len(members), c, n)
-        target = np.stack([tracks[t].values.T for t in members])                # (T, c, n)
-        scale = (1.0 + top[rows]).reshape(len(members), c)
+        got = np.concatenate([evaluated[row_start[first_row[j]]:row_start[first_row[j]] + c * widths[first_row[j]]]
+                              .reshape(c, -1) for j in members], axis=1)                 # (c, M)
+        want = np.concatenate([tracks[batch[j][0]].values[batch[j][1]].T for j in members], axis=1)
+        scale = np.stack([1.0 + top[first_row[j]:first_row[j] + c] for j in members])    # (T, c)
         if mode != "QUATERNION":
-            basis = np.stack([tracks[t].basis.T if tracks[t].basis is not None else np.zeros((c, n))
-                              for t in members])
-            scale = scale + np.max(np.abs(basis), axis=2)
-            evaluated = evaluated + basis
-            target = target + basis
-            evaluated = euler_to_quat(evaluated.transpose(0, 2, 1), mode).transpose(0, 2, 1)
-            target = euler_to_quat(target.transpose(0, 2, 1), mode).transpose(0, 2, 1)
-        angles = _angle_between(evaluated.transpose(1, 0, 2).reshape(4, -1),
-                                target.transpose(1, 0, 2).reshape(4, -1)).reshape(len(members), n)
+            basis_rows = [tracks[batch[j][0]].basis for j in members]
+            basis = np.concatenate([b[batch[j][1]].T if b is not None else np.zeros((c, batch[j][1].shape[0]))
+                                    for j, b in zip(members, basis_rows)], axis=1)
+            scale = scale + np.stack([np.max(np.abs(b), axis=0) if b is not None else np.zeros(c)
+                                      for b in basis_rows])
+            got = euler_to_quat((got + basis).T, mode).T
+            want = euler_to_quat((want + basis).T, mode).T
+        angles = _angle_between(got, want)
         margins = 2.0 * _F32_MARGIN_REL * np.sum(scale, axis=1)
-        for j, t in enumerate(members):
-            out[t] = (angles[j], float(margins[j]))
+        ends = np.cumsum([batch[j][1].shape[0] for j in members])
+        for j, part, margin in zip(members, np.split(angles, ends[:-1]), margins):
+            out[j] = (part, float(margin))
     return out
 
 
-def _every_frame_keys(frames, track):
-    """Keys on every frame with the data's slopes (exact at the frames)."""
+def _segments_holding(segs, n_frames, curves, frame_idx) -> np.ndarray:
+    """Index (into ``segs``) of the segment of each ``curves[i]`` holding frame ``frame_idx[i]``
+    (a frame on a key belongs to the segment starting there; the last frame to the last segment)."""
+    return np.searchsorted(segs.code(n_frames), curves.astype(np.int64) * n_frames + frame_idx, side="right") - 1
+
+
+def _bad_pairs(bad_frames, tracks_failed, curve0, n_comp, kind, want_kind):
+    """(curve, frame) pairs: every bad frame of each failed track, for its curves of kind ``want_kind``
+    (or of any other kind with ``want_kind`` negative: -1 - kind)."""
+    curves, frames_ = [], []
+    for t in tracks_failed:
+        own = np.arange(curve0[t], curve0[t] + n_comp[t])
+        own = own[kind[own] == want_kind] if want_kind >= 0 else own[kind[own] != -1 - want_kind]
+        curves.append(np.repeat(own, bad_frames[t].shape[0]))
+        frames_.append(np.tile(bad_frames[t], own.shape[0]))
+    if not curves:
+        return np.zeros(0, dtype=np.intp), np.zeros(0, dtype=np.intp)
+    return np.concatenate(curves), np.concatenate(frames_)
+
+
+def _row_blocks(n_rows, n_frames):
+    """Slices of rows holding about ``_EVAL_CHUNK`` values each (at least one row)."""
+    step = max(1, _EVAL_CHUNK // max(n_frames, 1))
+    return [slice(a, min(a + step, n_rows)) for a in range(0, n_rows, step)]
+
+
+class _Plans:
+    """Every curve's plan and the flat inputs of the fit (see the comment above ``_NO_CURVE``)."""
+
+    def __init__(self, frames, tracks, tolerance_rad):
+        n = frames.shape[0]
+        self.frames, self.tracks, self.n = frames, tracks, n
+        self.n_comp = np.array([t.values.shape[1] for t in tracks], dtype=np.intp)
+        self.curve0 = np.concatenate(([0], np.cumsum(self.n_comp)[:-1])).astype(np.intp)
+        self.track_of = np.repeat(np.arange(len(tracks)), self.n_comp)
+        self.values = np.concatenate([t.values.T for t in tracks])                     # (C, n)
+        self.has_rest = np.repeat([t.rest is not None for t in tracks], self.n_comp)
+        self.rest = np.concatenate([t.rest if t.rest is not None else np.zeros(c)
+                                    for t, c in zip(tracks, self.n_comp)]).astype(np.float64)
+        self.is_quat = np.repeat([t.mode == "QUATERNION" for t in tracks], self.n_comp)
+        self.budget = np.empty((self.values.shape[0], n), dtype=np.float32)   # float32: only compared
+        for t, track in enumerate(tracks):
+            share = _BUDGET_SHARE["QUATERNION" if track.mode == "QUATERNION" else "EULER"]
+            self.budget[self.curve0[t]:self.curve0[t] + self.n_comp[t]] = np.float32(share * tolerance_rad)
+        self.kind = np.zeros(self.values.shape[0], dtype=np.int8)
+        self.const = np.zeros(self.values.shape[0])
+        self.segs = _NO_SEGMENTS
+
+    def curves_of(self, track_ids) -> np.ndarray:
+        return np.concatenate([np.arange(self.curve0[t], self.curve0[t] + self.n_comp[t]) for t in track_ids])
+
+    def fit(self, track_ids, shared_frames, partial, bad_frames):
+        """New plans for the curves of ``track_ids`` (increasing). With ``partial`` (a later round,
+        separate frames), segmented curves refit only their segments holding ``bad_frames``
+        ({track: frame indices}); the other curves are planned afresh from their budgets.
+
+        Returns None, or with ``partial`` {track: frame indices whose values may have changed, or
+        None for every frame}; a track not listed is unchanged."""
+        from .bezier_fit import fit_keys
+        n = self.n
+        curves = self.curves_of(track_ids)
+        kind = self.kind[curves]
+        decide = (kind != _SEGMENTS) if partial else np.ones(curves.shape[0], dtype=bool)
+        b_min, off_rest, spread = (np.empty(curves.shape[0]) for _ in range(3))
+        for rows in _row_blocks(curves.shape[0], n):   # blocks of rows: bounded temporaries
+            v = self.values[curves[rows]]
+            b_min[rows] = np.min(self.budget[curves[rows]], axis=1)
+            off_rest[rows] = np.max(np.abs(v - self.rest[curves[rows], None]), axis=1)
+            spread[rows] = np.ptp(v, axis=1)
+        b_min = b_min.astype(np.float32)
+        near = self.has_rest[curves] & (off_rest <= b_min)
+        starts = np.concatenate(([0], np.cumsum(self.n_comp[track_ids])[:-1]))   # each track's first curve
+        whole = np.repeat(np.logical_and.reduceat(near, starts), self.n_comp[track_ids])
+        near = np.where(self.is_quat[curves], whole, near)   # a quaternion keeps all four curves or none
+        flat = (spread <= 2.0 * b_min) & ~near
+        fresh = decide & ~near & ~flat
+        if shared_frames:
+            any_fit = np.repeat(np.logical_or.reduceat(fresh, starts), self.n_comp[track_ids])
+            fresh = any_fit & ~near
+        redo = curves[decide]
+        was_kind, was_const = self.kind[curves].copy(), self.const[curves].copy()
+        new_kind = np.where(near, _NO_CURVE, np.where(flat, _ONE_KEY, _SEGMENTS)).astype(np.int8)
+        new_kind[fresh] = _SEGMENTS
+        self.kind[redo] = new_kind[decide]
+        one = curves[decide & (new_kind == _ONE_KEY)]
+        self.const[one] = 0.5 * (np.max(self.values[one], axis=1) + np.min(self.values[one], axis=1))
+        redo_mask = np.zeros(self.values.shape[0], dtype=bool)
+        redo_mask[redo] = True
+        keep = ~redo_mask[self.segs.curve]
+        range_curve = [curves[fresh]]
+        range_lo = [np.zeros(int(fresh.sum()), dtype=np.intp)]
+        range_hi = [np.full(int(fresh.sum()), n - 1, dtype=np.intp)]
+        if partial:
+            pc, pf = _bad_pairs(bad_frames, track_ids, self.curve0, self.n_comp, self.kind, _SEGMENTS)
+            pc, pf = pc[~redo_mask[pc]], pf[~redo_mask[pc]]
+            held = np.unique(_segments_holding(self.segs, n, pc, pf))
+            keep[held] = False
+            range_curve.append(self.segs.curve[held])
+            range_lo.append(self.segs.lo[held])
+            range_hi.append(self.segs.hi[held])
+        parts = [self.segs.take(keep)]
+        if shared_frames:
+            parts.extend(self._fit_shared(curves[fresh], fit_keys))
+        else:
+            rc, rlo, rhi = np.concatenate(range_curve), np.concatenate(range_lo), np.concatenate(range_hi)
+            if rc.size:   # every curve is a group of the flat arrays (views: nothing copied)
+                order = np.lexsort((rlo, rc))
+                seg_g, seg_lo, seg_hi, s_out, s_in = fit_keys(
+                    self.frames, self.values.reshape(1, -1), self.budget.reshape(1, -1), self.values.shape[0], n,
+                    ranges=(rc[order], rlo[order], rhi[order]))
+                parts.append(_Segments(seg_g, seg_lo, seg_hi, s_out[0], s_in[0]))
+        self.segs = _Segments.merged(parts, n)
+        if not partial:
+            return None
+        # Frames whose values can have changed: the refit ranges, every frame of a re-planned curve.
+        replanned = decide & ((self.kind[curves] != was_kind) | (self.const[curves] != was_const))
+        selection = {}
+        for t in np.unique(self.track_of[curves[replanned]]):
+            selection[int(t)] = None
+        if range_curve[1].size:
+            rt = self.track_of[range_curve[1]]
+            mark = np.zeros((len(self.tracks), n + 1), dtype=np.int32)
+            np.add.at(mark, (rt, range_lo[1]), 1)
+            np.add.at(mark, (rt, range_hi[1] + 1), -1)
+            inside = np.cumsum(mark, axis=1)[:, :n] > 0
+            for t in np.unique(rt):
+                selection.setdefault(int(t), np.flatnonzero(inside[t]))
+        return selection
+
+    def _fit_shared(self, fresh_curves, fit_keys):
+        """Segments of curves keyed together per track (groups of equal width fitted together)."""
+        n = self.n
+        by_track = {}
+        for c in fresh_curves:
+            by_track.setdefault(int(self.track_of[c]), []).append(int(c))
+        by_width = {}
+        for t, cs in by_track.items():
+            by_width.setdefault(len(cs), []).append(cs)
+        parts = []
+        for width, groups in by_width.items():
+            matrix = np.array(groups, dtype=np.intp)                                   # (G, w)
+            flat_values = self.values[matrix].transpose(1, 0, 2).reshape(width, -1)
+            flat_budget = self.budget[matrix].transpose(1, 0, 2).reshape(width, -1)
+            seg_g, seg_lo, seg_hi, s_out, s_in = fit_keys(self.frames, flat_values, flat_budget, len(groups), n)
+            parts.extend(_Segments(matrix[seg_g, w], seg_lo, seg_hi, s_out[w], s_in[w]) for w in range(width))
+        return parts
+
+    def keys(self, track_ids) -> _FlatKeys:
+        mask = np.zeros(self.values.shape[0], dtype=bool)
+        mask[self.curves_of(track_ids)] = True
+        one = np.flatnonzero(mask & (self.kind == _ONE_KEY))
+        return _flat_keys(self.frames, self.values, self.segs.take(mask[self.segs.curve]), one, self.const[one])
+
+    def shrink(self, failed, bad_frames, factors):
+        """Lower the budget of every component of the failed tracks on the segments holding their
+        bad frames (all frames for a component with one key or none), by the track's factor."""
+        n = self.n
+        f32 = {t: np.float32(f) for t, f in zip(failed, factors)}
+        for t in failed:
+            own = np.arange(self.curve0[t], self.curve0[t] + self.n_comp[t])
+            whole = own[self.kind[own] != _SEGMENTS]
+            self.budget[whole] *= f32[t]
+        pc, pf = _bad_pairs(bad_frames, failed, self.curve0, self.n_comp, self.kind, _SEGMENTS)
+        if not pc.size:
+            return
+        held = _segments_holding(self.segs, n, pc, pf)
+        rows = np.unique(pc)
+        slot = np.searchsorted(rows, pc)
+        lo, hi = self.segs.lo[held], self.segs.hi[held]
+        scale = np.array([f32[int(t)] for t in self.track_of[rows]], dtype=np.float32)
+        for part in _row_blocks(rows.shape[0], n):   # blocks of rows: bounded temporaries
+            pick = (slot >= part.start) & (slot < part.stop)
+            mark = np.zeros((part.stop - part.start, n + 1), dtype=np.int32)
+            np.add.at(mark, (slot[pick] - part.start, lo[pick]), 1)
+            np.add.at(mark, (slot[pick] - part.start, hi[pick] + 1), -1)
+            inside = np.cumsum(mark, axis=1)[:, :n] > 0
+            block = self.budget[rows[part]]
+            self.budget[rows[part]] = np.where(inside, block * scale[part, None], block)
+
+    def rotation_keys(self, t, keys, bounds, max_error) -> RotationKeys:
+        chans = []
+        for c in range(self.curve0[t], self.curve0[t] + self.n_comp[t]):
+            chans.append(None if self.kind[c] == _NO_CURVE else keys.channel(bounds[c], bounds[c + 1]))
+        return RotationKeys(tuple(chans), max_error)
+
+
+def _every_frame_segments(frames, values_flat, curves) -> _Segments:
+    """A key on every frame with the data's slopes (exact at the frames), for ``curves``."""
     from .bezier_fit import data_slopes_at
     n = frames.shape[0]
     idx = np.arange(n)
-    slopes = data_slopes_at(frames, track.values.T, np.zeros(n, dtype=np.intp), idx, n)
-    return tuple(_channel_keys(frames, track.values[:, i], idx, slopes[i], slopes[i])
-                 for i in range(track.values.shape[1]))
-
-
-def _keys_from_segments(frames, values, lo, hi, s_out, s_in) -> ChannelKeys:
-    """ChannelKeys of consecutive segments (sorted, lo[k + 1] == hi[k]) of one component."""
-    idx = np.concatenate((lo, hi[-1:]))
-    slope_out = np.concatenate((s_out, s_in[-1:]))
-    slope_in = np.concatenate((s_out[:1], s_in))
-    return _channel_keys(frames, values, idx, slope_in, slope_out)
-
-
-def _fit_tracks(frames, tracks, budgets, shared_frames, plans=None, bad_frames=None):
-    """Keys of every track from its per-frame budgets (n, c).
-
-    ``plans`` (per track, per component: None = no curve, a float = one key, or (lo, hi, slope_out,
-    slope_in) segments) and ``bad_frames`` (per track) come from a previous round: components
-    with segments then refit only their segments holding bad frames. Returns (keys, plans).
-    """
-    from .bezier_fit import fit_keys
-    n = frames.shape[0]
-    new_plans = []
-    jobs = []   # (track index, [components], [(lo, hi) ranges]) fitted as one group per range set
-    for ti, (track, budget) in enumerate(zip(tracks, budgets)):
-        v = track.values
-        c = v.shape[1]
-        old = plans[ti] if plans is not None else [None] * c
-        plan = [None] * c
-        partial = plans is not None and not shared_frames
-        b_min = np.min(budget, axis=0)
-        near_rest = (np.max(np.abs(v - track.rest), axis=0) <= b_min) if track.rest is not None else np.zeros(c, bool)
-        if track.mode == "QUATERNION" and not near_rest.all():
-            near_rest[:] = False          # a quaternion keeps all four curves or none
-        flat = (np.ptp(v, axis=0) <= 2.0 * b_min) & ~near_rest
-        fit = []
-        for ci in range(c):
-            if partial and isinstance(old[ci], tuple):
-                lo, hi, s_out, s_in = old[ci]
-                key_idx = np.concatenate((lo, hi[-1:]))
-                seg = np.unique(np.clip(np.searchsorted(key_idx, bad_frames[ti], side="right") - 1, 0, lo.shape[0] - 1))
-                keep = np.ones(lo.shape[0], bool)
-                keep[seg] = False
-                plan[ci] = (lo[keep], hi[keep], s_out[keep], s_in[keep])
-                jobs.append((ti, [ci], list(zip(lo[seg], hi[seg]))))
-            elif near_rest[ci]:
-                plan[ci] = None
-            elif flat[ci]:
-                plan[ci] = float(0.5 * (np.max(v[:, ci]) + np.min(v[:, ci])))
-            else:
-                fit.append(ci)
-        if shared_frames and fit:
-            fit = [ci for ci in range(c) if not near_rest[ci]]
-        if shared_frames and fit:
-            jobs.append((ti, fit, [(0, n - 1)]))
-        elif fit:
-            jobs.extend((ti, [ci], [(0, n - 1)]) for ci in fit)
-        new_plans.append(plan)
-    by_width = {}
-    for job in jobs:
-        by_width.setdefault(len(job[1]), []).append(job)
-    for width, group in by_width.items():
-        flat_values = np.empty((width, len(group) * n))
-        flat_budget = np.empty((width, len(group) * n), dtype=np.float32)
-        rg, rlo, rhi = [], [], []
-        for g, (ti, chans, ranges) in enumerate(group):
-            flat_values[:, g * n:(g + 1) * n] = tracks[ti].values[:, chans].T
-            flat_budget[:, g * n:(g + 1) * n] = budgets[ti][:, chans].T
-            for lo, hi in ranges:
-                rg.append(g)
-                rlo.append(lo)
-                rhi.append(hi)
-        seg_g, seg_lo, seg_hi, s_out, s_in = fit_keys(frames, flat_values, flat_budget, len(group), n,
-                                                      ranges=(rg, rlo, rhi))
-        bounds = np.searchsorted(seg_g, np.arange(len(group) + 1))
-        for g, (ti, chans, _ranges) in enumerate(group):
-            a, b = bounds[g], bounds[g + 1]
-            for w, ci in enumerate(chans):
-                lo, hi, so, si = seg_lo[a:b], seg_hi[a:b], s_out[w, a:b], s_in[w, a:b]
-                kept = new_plans[ti][ci]
-                if isinstance(kept, tuple):   # merge with the segments kept from the last round
-                    lo, hi = np.concatenate((kept[0], lo)), np.concatenate((kept[1], hi))
-                    so, si = np.concatenate((kept[2], so)), np.concatenate((kept[3], si))
-                    order = np.argsort(lo, kind="stable")
-                    lo, hi, so, si = lo[order], hi[order], so[order], si[order]
-                new_plans[ti][ci] = (lo, hi, so, si)
-    keys = []
-    for ti, plan in enumerate(new_plans):
-        v = tracks[ti].values
-        row = []
-        for ci, p in enumerate(plan):
-            if p is None:
-                row.append(None)
-            elif isinstance(p, tuple):
-                row.append(_keys_from_segments(frames, v[:, ci], *p))
-            else:
-                row.append(_constant_keys(frames[0], p))
-        keys.append(tuple(row))
-    return keys, new_plans
-
-
-def _shrink_budget(frames, budget, keys, bad_frames, factor):
-    """Lower the budget of every component on the segments (between its keys) holding bad frames."""
-    n = frames.shape[0]
-    for ci, k in enumerate(keys):
-        if k is None or k.n_keys == 1:
-            budget[:, ci] *= factor
-            continue
-        key_idx = np.searchsorted(frames, k.frames)
-        seg = np.clip(np.searchsorted(key_idx, bad_frames, side="right") - 1, 0, key_idx.shape[0] - 2)
-        lo, hi = key_idx[seg], np.minimum(key_idx[seg + 1], n - 1)
-        mark = np.zeros(n + 1, dtype=np.int64)
-        np.add.at(mark, lo, 1)
-        np.add.at(mark, hi + 1, -1)
-        budget[np.cumsum(mark)[:n] > 0, ci] *= factor
+    slopes = data_slopes_at(frames, values_flat[curves].reshape(1, -1), np.repeat(np.arange(curves.shape[0]), n),
+                            np.tile(idx, curves.shape[0]), n)[0].reshape(curves.shape[0], n)
+    lo = np.tile(idx[:-1], curves.shape[0])
+    return _Segments(np.repeat(curves, n - 1), lo, lo + 1, slopes[:, :-1].ravel(), slopes[:, 1:].ravel())
 
 
 def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames: bool = False) -> list:
@@ -943,39 +1089,51 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
         rest = None if t.rest is None else np.asarray(t.rest, dtype=np.float64)
         checked.append(RotationTrack(v, t.mode, basis, rest))
     tracks = checked
-    n = frames.shape[0]
-    budgets = [np.full((n, t.values.shape[1]),   # float32: half the memory; only compared against
-                       _BUDGET_SHARE["QUATERNION" if t.mode == "QUATERNION" else "EULER"] * tolerance_rad,
-                       dtype=np.float32)
-               for t in tracks]
+    if not tracks:
+        return []
+    plans = _Plans(frames, tracks, tolerance_rad)
+    n_curves = plans.values.shape[0]
     out = [None] * len(tracks)
     todo = list(range(len(tracks)))
-    plans = [None] * len(tracks)
-    bad_frames = [None] * len(tracks)
+    bad_frames, errors = {}, {}
+    top_eval = np.zeros(n_curves)   # largest |evaluated value| per curve (float32 allowance)
     for round_ in range(_MAX_ROUNDS):
         if not todo:
             break
-        fitted, new_plans = _fit_tracks(frames, [tracks[i] for i in todo], [budgets[i] for i in todo], shared_frames,
-                                        None if round_ == 0 else [plans[i] for i in todo],
-                                        None if round_ == 0 else [bad_frames[i] for i in todo])
-        for i, plan in zip(todo, new_plans):
-            plans[i] = plan
-        again = []
-        measured = _tracks_errors(frames, [tracks[i] for i in todo], fitted)
-        for i, keys, (err, margin) in zip(todo, fitted, measured):
+        selection = plans.fit(todo, shared_frames, round_ > 0 and not shared_frames, bad_frames)
+        if selection is None:
+            top_eval[plans.curves_of(todo)] = 0.0
+        keys = plans.keys(todo)
+        bounds = np.searchsorted(keys.curve, np.arange(n_curves + 1))
+        # Later rounds evaluate only the frames whose values can have changed (the others keep
+        # their measured angles: their segments, keys and handles are the same).
+        measured = _measure(frames, tracks, todo, plans.curve0, keys, plans.rest, top_eval, selection)
+        again, factors = [], []
+        for i, (err, margin) in zip(todo, measured):
+            if selection is not None and selection.get(i) is not None:
+                full = errors[i]
+                full[selection[i]] = err
+                err = full
+            errors[i] = err
             limit = tolerance_rad - margin
             worst = float(np.max(err))
             if worst <= limit:
-                out[i] = RotationKeys(keys, worst)
+                out[i] = plans.rotation_keys(i, keys, bounds, worst)
                 continue
-            bad = np.flatnonzero(err > limit)
-            factor = float(np.clip(0.9 * limit / worst, _SHRINK_MIN, _SHRINK_MAX))
-            _shrink_budget(frames, budgets[i], keys, bad, factor)
-            bad_frames[i] = bad
+            bad_frames[i] = np.flatnonzero(err > limit)
+            factors.append(float(np.clip(0.9 * limit / worst, _SHRINK_MIN, _SHRINK_MAX)))
             again.append(i)
+        if again:
+            plans.shrink(again, bad_frames, factors)
         todo = again
-    for i in todo:   # still over after the last round: a key on every frame
-        keys = _every_frame_keys(frames, tracks[i])
-        err, _margin = _tracks_errors(frames, [tracks[i]], [keys])[0]
-        out[i] = RotationKeys(keys, float(np.max(err)))
+    if todo:   # still over after the last round: a key on every frame
+        curves = plans.curves_of(todo)
+        plans.kind[curves] = _SEGMENTS
+        plans.segs = _Segments.merged([plans.segs.take(~np.isin(plans.segs.curve, curves)),
+                                       _every_frame_segments(frames, plans.values, curves)], plans.n)
+        keys = plans.keys(todo)
+        bounds = np.searchsorted(keys.curve, np.arange(n_curves + 1))
+        top_eval[curves] = 0.0
+        for i, (err, _margin) in zip(todo, _measure(frames, tracks, todo, plans.curve0, keys, plans.rest, top_eval)):
+            out[i] = plans.rotation_keys(i, keys, bounds, float(np.max(err)))
     return out

@@ -157,3 +157,49 @@ def test_write_into_the_action_is_taken_back_by_one_undo_step(rig):
         pytest.skip("bpy.ops.ed.undo() is unavailable here (no undo step recorded)")
     bpy.ops.ed.undo()
     assert action_digest(bpy.data.actions[name]) == keys
+
+
+def _bone_curves(obj):
+    """{bone: [F-curves of its rotation channel]} on the bake layer."""
+    act = bpy.data.actions[bake_layer.bake_action_name(obj)]
+    out = {}
+    for fc in anim_data.all_action_fcurves(act):
+        if ".rotation_" in fc.data_path:
+            out.setdefault(fc.data_path.split('"')[1], []).append(fc)
+    return out
+
+
+def test_shared_key_frames_setting_survives_reload_and_reaches_the_keys(rig, tmp_path):
+    """The stored setting (saved and reopened) keys every channel of a bone on the same frames;
+    the rotation error against the per-frame bake, by Blender's own FCurve.evaluate, stays within
+    the tolerance. Reference: FCurve.evaluate of both layers; mathutils for the rotation angle."""
+    from mathutils import Quaternion
+    assert rig.overlap_assist.bake_shared_frames is False    # default: each channel keyed where it needs
+    rig.overlap_assist.bake_shared_frames = True
+    path = str(tmp_path / "shared.blend")
+    bpy.ops.wm.save_as_mainfile(filepath=path)
+    bpy.ops.wm.open_mainfile(filepath=path, load_ui=False)
+    obj = bpy.data.objects["Hero"]
+    assert obj.overlap_assist.bake_shared_frames is True
+    frames = range(bpy.context.scene.frame_start, bpy.context.scene.frame_end + 1)
+    obj.overlap_assist.bake_tolerance_deg = 0.0
+    op(obj, "bake_chains")
+    per_frame = {n: [[fc.evaluate(f) for fc in sorted(fcs, key=lambda c: c.array_index)] for f in frames]
+                 for n, fcs in _bone_curves(obj).items()}
+    obj.overlap_assist.bake_tolerance_deg = 0.5
+    op(obj, "bake_chains")
+    shared = _bone_curves(obj)
+    n_shared = sum(len(fc.keyframe_points) for fcs in shared.values() for fc in fcs)
+    worst = 0.0
+    for name, fcs in shared.items():
+        assert obj.pose.bones[name].rotation_mode == 'QUATERNION'
+        assert len({tuple(k.co[0] for k in fc.keyframe_points) for fc in fcs}) == 1, name
+        by_index = {fc.array_index: fc for fc in fcs}
+        for k, f in enumerate(frames):
+            got = Quaternion([by_index[i].evaluate(f) if i in by_index else (1.0, 0, 0, 0)[i] for i in range(4)])
+            want = Quaternion(per_frame[name][k])
+            worst = max(worst, np.degrees(got.normalized().rotation_difference(want.normalized()).angle))
+    assert worst <= 0.5 + 1e-4
+    obj.overlap_assist.bake_shared_frames = False
+    op(obj, "bake_chains")
+    assert sum(len(fc.keyframe_points) for fcs in _bone_curves(obj).values() for fc in fcs) < n_shared

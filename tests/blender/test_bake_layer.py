@@ -263,8 +263,34 @@ def test_reduction_stays_within_tolerance_with_far_fewer_keys(mode):
         assert np.rad2deg(angle.max()) <= tol_deg + 1e-4   # + float32 matrices (~1e-6 rad)
 
 
-def test_rebake_replaces_only_its_layer_and_is_identical():
-    obj = make_rig("XZY")
+@pytest.mark.parametrize("mode", MODES)
+def test_reduced_keys_keep_the_users_keys_the_hemisphere_and_no_flips(mode):
+    """At the default tolerance (fitted keys): the user's action byte for byte, consecutive
+    quaternions on one hemisphere and no 180° Euler jumps, by Blender's FCurve.evaluate at every
+    frame and between the keys (quarter frames); the base angles cross pi (test rig)."""
+    obj = make_rig(mode)
+    base = obj.animation_data.action
+    digest = action_digest(base)
+    stats = bake_offsets(obj, BAKE_FRAMES, damped_offsets(flip_signs=True), tolerance_deg=0.5)
+    assert stats.keys_written < 0.5 * stats.keys_before and stats.max_error_deg <= 0.5
+    assert action_digest(base) == digest
+    fine = np.arange(BAKE_FRAMES[0], BAKE_FRAMES[-1] + 0.01, 0.25)
+    curves = bake_fcurves(obj)
+    for bone in CHAIN:
+        prop = "rotation_quaternion" if mode == "QUATERNION" else "rotation_euler"
+        path = obj.pose.bones[bone].path_from_id(prop)
+        rest = (1.0, 0.0, 0.0, 0.0) if mode == "QUATERNION" else (0.0, 0.0, 0.0)
+        vals = np.array([[curves[(path, i)].evaluate(f) if (path, i) in curves else rest[i]
+                          for i in range(len(rest))] for f in fine])
+        if mode == "QUATERNION":
+            assert np.all(np.sum(vals[1:] * vals[:-1], axis=1) > 0.0), bone
+        else:
+            assert np.max(np.abs(np.diff(vals, axis=0))) < 0.5 * math.pi, bone
+
+
+@pytest.mark.parametrize("mode", ("QUATERNION", "XZY"))
+def test_rebake_replaces_only_its_layer_and_is_identical(mode):
+    obj = make_rig(mode)
     base = obj.animation_data.action
     digest = action_digest(base)
     offsets = damped_offsets()

@@ -40,6 +40,16 @@ def test_batch_over_three_files_with_one_corrupt(tmp_path):
     third = run_cli("batch", str(src / "a.blend"), str(src / "b.blend"), "--out", str(out))
     assert "1 processed, 1 up to date, 0 failed" in third.stdout
     assert (out / "b.baked.blend").is_file()
+    # Another key layout is another bake: the file again, each bone's channels on one set of frames.
+    shared = run_cli("batch", str(src / "a.blend"), "--out", str(out), "--shared-key-frames")
+    assert "1 processed, 0 up to date, 0 failed" in shared.stdout, shared.stdout
+    bpy.ops.wm.open_mainfile(filepath=str(out / "a.baked.blend"), load_ui=False)
+    from overlap_assist.blender import anim_data, bake_layer
+    obj = next(o for o in bpy.data.objects if bake_layer.has_bake(o))
+    frames_by_path = {}
+    for fc in anim_data.all_action_fcurves(bake_layer.find_bake(obj)[2]):
+        frames_by_path.setdefault(fc.data_path, set()).add(tuple(k.co[0] for k in fc.keyframe_points))
+    assert frames_by_path and all(len(v) == 1 for v in frames_by_path.values())
 
 
 def test_batch_never_runs_embedded_scripts(tmp_path):

@@ -166,6 +166,33 @@ def test_bake_writes_a_new_file_and_leaves_the_input(tail_file, tmp_path):
     assert [c.bone_names() for c in obj.overlap_assist.chains] == [["tail.001", "tail.002", "tail.003"]]
 
 
+def test_bake_with_shared_key_frames_keys_each_bone_on_one_set_of_frames(tail_file, tmp_path):
+    chain = ("--chain", "tail.001,tail.002,tail.003", "--preset", "heavy_tail", "--json")
+    rc, out, err = run_cli("bake", tail_file, "--out", str(tmp_path / "separate.blend"), *chain)
+    assert rc == 0, err
+    separate = json.loads(out)
+    rc, out, err = run_cli("bake", tail_file, "--out", str(tmp_path / "shared.blend"), "--shared-key-frames", *chain)
+    assert rc == 0, err
+    shared = json.loads(out)
+    assert shared["keys_written"] > separate["keys_written"] and shared["max_error_deg"] <= 0.5
+    bpy.ops.wm.open_mainfile(filepath=str(tmp_path / "shared.blend"), load_ui=False)
+    from overlap_assist.blender import anim_data, bake_layer
+    act = bpy.data.actions[bake_layer.bake_action_name(bpy.data.objects["Hero"])]
+    frames_by_bone = {}
+    for fc in anim_data.all_action_fcurves(act):
+        frames_by_bone.setdefault(fc.data_path, set()).add(tuple(k.co[0] for k in fc.keyframe_points))
+    assert frames_by_bone and all(len(sets) == 1 for sets in frames_by_bone.values())
+
+
+def test_batch_and_process_pass_the_key_layout_on():
+    from overlap_assist import batch, cli
+    args = cli.build_parser().parse_args(["process", "a.blend", "--out-dir", "o", "--stem", "a", "--shared-key-frames"])
+    assert args.shared_key_frames is True
+    assert cli.build_parser().parse_args(["batch", "a.blend", "--out", "o"]).shared_key_frames is False
+    assert "--shared-key-frames" in batch.worker_command(["x"], "a.blend", "o", "a", None, shared_frames=True)
+    assert "--shared-key-frames" not in batch.worker_command(["x"], "a.blend", "o", "a", None)
+
+
 def test_free_pendulum_bake_with_stored_chains(tail_file, tmp_path):
     # Chains stored in the file are baked when no --chain is given.
     bpy.ops.wm.open_mainfile(filepath=tail_file, load_ui=False)

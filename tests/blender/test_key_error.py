@@ -189,9 +189,14 @@ def test_shared_frames_option_keys_each_bone_on_one_set_of_frames():
     obj = make_rig("YXZ")
     frames = np.arange(1, 121)
     offsets = swing_offsets(frames, seed=6)
+    static = {n: list(obj.pose.bones[n].rotation_euler) for n in BAKED}
+    animated = animated_rotations(obj, frames)
     separate = bake_offsets(obj, frames, offsets, tolerance_deg=TOL_DEG)
     shared = bake_offsets(obj, frames, offsets, tolerance_deg=TOL_DEG, shared_frames=True)
     assert shared.keys_written > separate.keys_written
+    errors = true_errors_deg(obj, frames, animated, offsets, static)   # the bound holds in this layout too
+    assert max(errors.values()) <= TOL_DEG + ROUNDING_DEG, errors
+    assert shared.max_error_deg == pytest.approx(max(errors.values()), abs=0.01)
     curves = written_curves(obj)
     for name in BAKED:
         path = obj.pose.bones[name].path_from_id("rotation_euler")

@@ -87,6 +87,11 @@ def test_chains_picked_on_deform_org_or_control_bones_bake_the_simulated_deform_
     act = bake_layer.find_bake(rig)[2]
     keyed = {fc.data_path.split('"')[1] for fc in anim_data.all_action_fcurves(act)}
     assert keyed == set(controls)
+    # The report counts the chain's keys on the bones that hold them (the controls), whatever was picked.
+    from overlap_assist.blender.report_data import baked_keys_by_chain
+    assert baked_keys_by_chain(rig, sampled, stats.n_frames) == {chains[0].name: (stats.keys_before,
+                                                                                  stats.keys_written)}
+    assert 0 < stats.keys_written < stats.keys_before
     deform = world_bone_directions(rig, ["DEF-" + n for n in controls], sampled.frames)
     err = _angles_deg(deform, motion.dirs[0])
     swing = _angles_deg(sampled.inputs[0].target_dirs, motion.dirs[0])
