@@ -519,6 +519,16 @@ def build_set(scene, collection, land_x, frames, follow_x, small=False):
     return cam
 
 
+def frame_camera(scene, view_height_m):
+    """Open the side camera up to ``view_height_m`` of height from the same ledge strip at the
+    bottom (no smaller than the standard view). Returns the view height set."""
+    height = max(float(view_height_m), CAMERA_VIEW_HEIGHT_M)
+    cam = scene.camera
+    cam.data.ortho_scale = height
+    cam.location.z = CAMERA_VIEW_BOTTOM_M + 0.5 * height
+    return height
+
+
 def setup_render(scene, width, height):
     """Workbench, flat object colours, outlines: renders headless with software GL on every version."""
     scene.render.engine = 'BLENDER_WORKBENCH'
