@@ -11,6 +11,7 @@ from . import anim_data
 from .selection import armature_poll
 from .sample_body import body_samples
 from .op_errors import guarded
+from .op_progress import progress_bar, report_warnings
 
 LOAD_PROPERTY = "overlap_load_g"
 """Custom property on the armature object whose F-curve shows the load factor."""
@@ -113,23 +114,19 @@ class OVERLAP_ASSIST_OT_analyze_motion(bpy.types.Operator):
 
     def execute(self, context):
         obj, scene = context.active_object, context.scene
-        wm = context.window_manager
-        wm.progress_begin(0, 100)
         try:
-            result, warnings = run_analysis(obj, scene, lambda f: wm.progress_update(int(100 * f)))
+            with progress_bar(context) as progress:
+                result, warnings = run_analysis(obj, scene, progress)
         except OverlapAssistError as exc:
             self.report({'ERROR'}, str(exc))
             return {'CANCELLED'}
-        finally:
-            wm.progress_end()
         write_load_curve(obj, result)
         write_markers(obj, scene, result)
         summary = analysis_to_dict(result)
         summary.pop("frames"), summary.pop("load_factor")
         summary["warnings"] = warnings
         obj.overlap_assist.body.last_summary = json.dumps(summary)
-        for w in warnings:
-            self.report({'WARNING'}, w)
+        report_warnings(self, warnings)
         self.report({'INFO'}, summary_line(result))
         return {'FINISHED'}
 

@@ -41,7 +41,7 @@ import bpy
 import numpy as np
 
 from ..core.errors import OverlapAssistError
-from . import anim_data
+from . import anim_data, nla_layer
 from .pose_read import rotation_property
 
 BAKE_TRACK_NAME = "Overlap Bake"
@@ -67,15 +67,7 @@ def bake_action_name(obj) -> str:
 
 def find_bake(obj):
     """(track, strip, action) of the object's bake layer, or None."""
-    ad = obj.animation_data
-    track = ad.nla_tracks.get(BAKE_TRACK_NAME) if ad else None
-    if track is None or len(track.strips) != 1:
-        return None
-    strip = track.strips[0]
-    act = strip.action
-    if act is None or INFO_KEY not in act.keys():
-        return None
-    return track, strip, act
+    return nla_layer.find_layer(obj, BAKE_TRACK_NAME, INFO_KEY)
 
 
 def has_bake(obj) -> bool:
@@ -83,13 +75,7 @@ def has_bake(obj) -> bool:
 
 
 def check_object(obj):
-    if obj is None or obj.type != 'ARMATURE':
-        raise BakeError("Select the character's armature to bake onto")
-    ad = obj.animation_data
-    if ad is not None and ad.use_tweak_mode:
-        raise BakeError(f"{obj.name} is in NLA tweak mode: leave tweak mode (Tab in the NLA editor) first")
-    if ad is not None and any(t.is_solo for t in ad.nla_tracks):
-        raise BakeError(f"An NLA track of {obj.name} is set to Solo: turn Solo off so the bake layer can play")
+    nla_layer.check_layer_target(obj, BakeError, "Select the character's armature to bake onto", "the bake layer")
 
 
 def _user_tracks(ad):
@@ -228,19 +214,10 @@ def _write_new(bag, pose, keys_by_bone):
     anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), cos, lefts, rights, types)
 
 
-def _set_strip_influence(strip, value, frame):
-    """Strip influence held by one constant key (Blender ignores it unless animated)."""
-    strip.use_animated_influence = True
-    fc = strip.fcurves.find("influence")
-    anim_data.write_keys(fc, [frame], [value], 'LINEAR')
-
-
 def bake_influence(obj):
     """The bake layer's influence (its key value at the strip start), or None without a bake."""
     found = find_bake(obj)
-    if found is None:
-        return None
-    return found[1].fcurves.find("influence").evaluate(found[1].frame_start)
+    return None if found is None else nla_layer.strip_influence(found[1])
 
 
 def set_bake_influence(obj, value) -> bool:
@@ -248,7 +225,7 @@ def set_bake_influence(obj, value) -> bool:
     found = find_bake(obj)
     if found is None:
         return False
-    _set_strip_influence(found[1], min(max(float(value), 0.0), 1.0), found[1].frame_start)
+    nla_layer.set_strip_influence(found[1], value)
     return True
 
 
@@ -270,7 +247,7 @@ def add_layer(obj, first_frame, key_set, influence, static_rotations) -> str:
     strip = track.strips.new(BAKE_TRACK_NAME, int(first_frame), act)
     strip.action_slot = slot
     strip.blend_type, strip.extrapolation = 'COMBINE', 'NOTHING'
-    _set_strip_influence(strip, influence, first_frame)
+    nla_layer.set_strip_influence(strip, influence, first_frame)
     if ad.action is not None:
         ad.action_blend_type = 'COMBINE'
     ad.use_nla = True

@@ -36,7 +36,7 @@ import bpy
 import numpy as np
 
 from ..core.errors import OverlapAssistError
-from . import anim_data
+from . import anim_data, nla_layer
 from . import bake_layer
 from .bake_layer import find_bake
 
@@ -69,15 +69,7 @@ def fix_action_name(obj) -> str:
 
 def find_fix(obj):
     """(track, strip, action) of the object's flight-fix layer, or None."""
-    ad = obj.animation_data
-    track = ad.nla_tracks.get(FIX_TRACK_NAME) if ad else None
-    if track is None or len(track.strips) != 1:
-        return None
-    strip = track.strips[0]
-    act = strip.action
-    if act is None or FIX_INFO_KEY not in act.keys():
-        return None
-    return track, strip, act
+    return nla_layer.find_layer(obj, FIX_TRACK_NAME, FIX_INFO_KEY)
 
 
 def has_fix(obj) -> bool:
@@ -85,13 +77,8 @@ def has_fix(obj) -> bool:
 
 
 def check_object(obj):
-    if obj is None or obj.type != 'ARMATURE':
-        raise FlightFixError("Select the character's armature to fix its flight")
-    ad = obj.animation_data
-    if ad is not None and ad.use_tweak_mode:
-        raise FlightFixError(f"{obj.name} is in NLA tweak mode: leave tweak mode (Tab in the NLA editor) first")
-    if ad is not None and any(t.is_solo for t in ad.nla_tracks):
-        raise FlightFixError(f"An NLA track of {obj.name} is set to Solo: turn Solo off so the fix layer can play")
+    nla_layer.check_layer_target(obj, FlightFixError, "Select the character's armature to fix its flight",
+                                 "the fix layer")
 
 
 def fix_bone(obj, body_bone=""):
@@ -156,23 +143,18 @@ def _take_over_restore(obj, info) -> bool:
     return True
 
 
-def _set_strip_influence(strip, value, frame):
-    strip.use_animated_influence = True
-    anim_data.write_keys(strip.fcurves.find("influence"), [frame], [value], 'LINEAR')
-
-
 def fix_influence(obj):
+    """The fix layer's influence (its key value at the strip start), or None without a fix."""
     found = find_fix(obj)
-    if found is None:
-        return None
-    return found[1].fcurves.find("influence").evaluate(found[1].frame_start)
+    return None if found is None else nla_layer.strip_influence(found[1])
 
 
 def set_fix_influence(obj, value) -> bool:
+    """Set the fix layer's influence to a constant 0..1 on its strip (saved, undoable)."""
     found = find_fix(obj)
     if found is None:
         return False
-    _set_strip_influence(found[1], min(max(float(value), 0.0), 1.0), found[1].frame_start)
+    nla_layer.set_strip_influence(found[1], value)
     return True
 
 
@@ -244,7 +226,7 @@ def write_fix(obj, scene, frames, offsets_m, bone_name, influence=1.0, details=N
     strip = track.strips.new(FIX_TRACK_NAME, int(frames[0]), act)
     strip.action_slot = slot
     strip.blend_type, strip.extrapolation = 'COMBINE', 'NOTHING'
-    _set_strip_influence(strip, influence, frames[0])
+    nla_layer.set_strip_influence(strip, influence, frames[0])
     if ad.action is not None:
         ad.action_blend_type = 'COMBINE'
     ad.use_nla = True
