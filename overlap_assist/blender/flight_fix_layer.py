@@ -23,7 +23,8 @@ the fix is written over a bake, it takes the bake's record over (the bake then r
 and when the fix is removed while a bake exists it hands its record to the bake, so whichever
 layer goes last puts the original back. A bake in the earlier arrangement (the user's action
 pushed into an "Overlap Base" strip, no active action) is left as it is: the fix goes between
-the base strip and the bake.
+the base strip and the bake, and takes the blend type over the same way, so a bake removed first
+puts the user's action back at COMBINE under which the fix still plays.
 
 A root location that nothing animates is written absolute (its static value + offset, COMBINE
 over zero) and its static value is put back on removal.
@@ -136,8 +137,11 @@ def _take_over_restore(obj, info) -> bool:
     for k in _RESTORE_FIELDS:
         if k in bake:
             info[k] = bake[k]
-    if bake.get("combine_set"):
+    if bake.get("combine_set") or bake.get("pushed"):
+        # The bake set COMBINE, or (earlier arrangement) will put the user's action back when it goes:
+        # from now on it leaves COMBINE for the fix, and the fix restores the original.
         bake["blend_type"] = 'COMBINE'
+        info["combine_set"] = 1
     bake["use_nla"], bake["created_animdata"] = 1, 0
     act[bake_layer.INFO_KEY] = bake
     return True

@@ -239,6 +239,71 @@ def test_chains_and_the_bake_see_the_corrected_body_and_layers_unstack_in_any_or
     assert ad.action_blend_type == 'REPLACE'
 
 
+def _legacy_bake(obj):
+    """The earlier bake arrangement, built by hand: the user's action pushed into an "Overlap Base"
+    strip (no active action) and the bake's COMBINE track above it, its record saying so."""
+    from overlap_assist.blender.bake_layer import BASE_TRACK_NAME, INFO_KEY, find_bake
+    select_bones(obj, ["tail.001", "tail.002"])
+    op(obj, "add_chains", preset="light_tail")
+    assert run(obj, "bake_chains") == {'FINISHED'}
+    _track, _strip, act = find_bake(obj)
+    baked = act.copy()                      # the bake's keys, kept while the current layer goes
+    statics = act[INFO_KEY].to_dict().get("static_rotations", {})
+    assert run(obj, "remove_bake") == {'FINISHED'}
+    ad = obj.animation_data
+    user, slot = ad.action, ad.action_slot
+    info = {"created_animdata": 0, "use_nla": int(ad.use_nla), "pushed": 1, "blend_type": ad.action_blend_type,
+            "influence": ad.action_influence, "extrapolation": ad.action_extrapolation,
+            "slot_identifier": slot.identifier, "static_rotations": statics}
+    scene = bpy.context.scene
+    base = ad.nla_tracks.new()
+    base.name = BASE_TRACK_NAME
+    strip = base.strips.new(user.name, scene.frame_start, user)
+    strip.action_slot = slot
+    strip.blend_type, strip.extrapolation = info["blend_type"], info["extrapolation"]
+    ad.action = None
+    track = ad.nla_tracks.new(prev=base)
+    track.name = BAKE_TRACK_NAME
+    strip = track.strips.new(BAKE_TRACK_NAME, scene.frame_start, baked)
+    strip.action_slot = baked.slots[0]
+    strip.blend_type, strip.extrapolation = 'COMBINE', 'NOTHING'
+    baked.name = f"{obj.name} {BAKE_TRACK_NAME}"
+    baked[INFO_KEY] = info
+    return user, slot
+
+
+@pytest.mark.parametrize("fix_goes_first", [True, False], ids=["fix-then-bake", "bake-then-fix"])
+def test_legacy_base_bake_and_a_fix_come_off_in_either_order_exactly(jumper, fix_goes_first):
+    obj, scene = jumper, bpy.context.scene
+    frames = range(scene.frame_start, scene.frame_end + 1, 4)
+    original = pose_snapshot(obj, frames)
+    digest = action_digest(obj.animation_data.action)
+    user, slot = _legacy_bake(obj)
+    ad = obj.animation_data
+    assert ad.action is None and [t.name for t in ad.nla_tracks] == ["Overlap Base", BAKE_TRACK_NAME]
+    legacy = pose_snapshot(obj, frames)
+    assert np.abs(legacy - original).max() > 1e-3          # the baked chain moves
+    assert run(obj, "fix_flight") == {'FINISHED'}
+    # The fix goes between the base strip and the bake, and plays: the root moves.
+    assert [t.name for t in ad.nla_tracks] == ["Overlap Base", FIX, BAKE_TRACK_NAME] and ad.action is None
+    assert np.abs(pose_snapshot(obj, frames) - legacy).max() > 0.05
+    if fix_goes_first:
+        assert run(obj, "remove_flight_fix") == {'FINISHED'}
+        assert [t.name for t in ad.nla_tracks] == ["Overlap Base", BAKE_TRACK_NAME] and ad.action is None
+        np.testing.assert_array_equal(pose_snapshot(obj, frames), legacy)
+        assert run(obj, "remove_bake") == {'FINISHED'}
+    else:
+        assert run(obj, "remove_bake") == {'FINISHED'}
+        # The user's action is active again, the fix still plays over it (COMBINE while a layer exists).
+        assert [t.name for t in ad.nla_tracks] == [FIX] and ad.action == user and ad.action_blend_type == 'COMBINE'
+        assert np.abs(pose_snapshot(obj, frames) - original).max() > 0.05
+        assert run(obj, "remove_flight_fix") == {'FINISHED'}
+    assert ad.action == user and ad.action_slot == slot and len(ad.nla_tracks) == 0
+    assert ad.action_blend_type == 'REPLACE' and action_digest(user) == digest
+    assert not any(FIX in a.name or BAKE_TRACK_NAME in a.name for a in bpy.data.actions)
+    np.testing.assert_array_equal(pose_snapshot(obj, frames), original)
+
+
 def test_keys_set_after_the_fix_land_in_the_users_action_and_removal_keeps_them(jumper):
     obj, scene = jumper, bpy.context.scene
     action = obj.animation_data.action
