@@ -8,7 +8,7 @@ from ..core.body_analysis import analyse_body, analysis_to_dict
 from ..core import readout
 from ..core.errors import OverlapAssistError
 from . import anim_data
-from .selection import armature_poll
+from .selection import OnArmature
 from .sample_body import body_samples
 from .op_errors import guarded
 from .op_progress import progress_bar, report_warnings
@@ -102,15 +102,10 @@ def summary_line(result):
 
 
 @guarded
-class OVERLAP_ASSIST_OT_analyze_motion(bpy.types.Operator):
+class OVERLAP_ASSIST_OT_analyze_motion(OnArmature, bpy.types.Operator):
     """Sample the rig's body motion and show the load it feels, its jump phases and a flight check"""
     bl_idname = "overlap_assist.analyze_motion"
     bl_label = "Analyze Body Motion"
-    bl_options = {'REGISTER', 'UNDO'}
-
-    @classmethod
-    def poll(cls, context):
-        return armature_poll(cls, context)
 
     def execute(self, context):
         obj, scene = context.active_object, context.scene

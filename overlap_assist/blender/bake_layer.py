@@ -61,21 +61,13 @@ class BakeError(OverlapAssistError):
 # Finding and checking
 # ---------------------------------------------------------------------------------------------
 
-def bake_action_name(obj) -> str:
-    return f"{obj.name} {BAKE_TRACK_NAME}"
-
-
-def find_bake(obj):
-    """(track, strip, action) of the object's bake layer, or None."""
-    return nla_layer.find_layer(obj, BAKE_TRACK_NAME, INFO_KEY)
-
-
-def has_bake(obj) -> bool:
-    return find_bake(obj) is not None
-
-
-def check_object(obj):
-    nla_layer.check_layer_target(obj, BakeError, "Select the character's armature to bake onto", "the bake layer")
+BAKE_LAYER = nla_layer.LayerKind(BAKE_TRACK_NAME, INFO_KEY, BakeError, "Select the character's armature to bake onto",
+                                 "the bake layer")
+bake_action_name = BAKE_LAYER.action_name
+find_bake = BAKE_LAYER.find
+"""(track, strip, action) of the object's bake layer, or None."""
+has_bake = BAKE_LAYER.has
+check_object = BAKE_LAYER.check_object
 
 
 def _user_tracks(ad):

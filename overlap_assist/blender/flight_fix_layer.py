@@ -64,22 +64,13 @@ class FixStats:
                 f"(largest shift {self.max_offset_m * 100:.1f} cm)")
 
 
-def fix_action_name(obj) -> str:
-    return f"{obj.name} {FIX_TRACK_NAME}"
-
-
-def find_fix(obj):
-    """(track, strip, action) of the object's flight-fix layer, or None."""
-    return nla_layer.find_layer(obj, FIX_TRACK_NAME, FIX_INFO_KEY)
-
-
-def has_fix(obj) -> bool:
-    return find_fix(obj) is not None
-
-
-def check_object(obj):
-    nla_layer.check_layer_target(obj, FlightFixError, "Select the character's armature to fix its flight",
-                                 "the fix layer")
+FIX_LAYER = nla_layer.LayerKind(FIX_TRACK_NAME, FIX_INFO_KEY, FlightFixError,
+                                "Select the character's armature to fix its flight", "the fix layer")
+fix_action_name = FIX_LAYER.action_name
+find_fix = FIX_LAYER.find
+"""(track, strip, action) of the object's flight-fix layer, or None."""
+has_fix = FIX_LAYER.has
+check_object = FIX_LAYER.check_object
 
 
 def fix_bone(obj, body_bone=""):

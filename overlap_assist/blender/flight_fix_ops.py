@@ -13,19 +13,14 @@ from . import flight_fix_layer, flight_jobs
 from .op_errors import guarded
 from .op_progress import progress_bar, report_warnings
 from .properties import FIX_MODES
-from .selection import armature_poll
+from .selection import OnArmature, armature_poll
 
 
 @guarded
-class OVERLAP_ASSIST_OT_check_spin(bpy.types.Operator):
+class OVERLAP_ASSIST_OT_check_spin(OnArmature, bpy.types.Operator):
     """Measure the whole body's angular momentum in each flight and report spin that starts or stops with nothing to push against"""
     bl_idname = "overlap_assist.check_spin"
     bl_label = "Check Spin"
-    bl_options = {'REGISTER', 'UNDO'}
-
-    @classmethod
-    def poll(cls, context):
-        return armature_poll(cls, context)
 
     def execute(self, context):
         obj, scene = context.active_object, context.scene
@@ -39,11 +34,10 @@ class OVERLAP_ASSIST_OT_check_spin(bpy.types.Operator):
 
 
 @guarded
-class OVERLAP_ASSIST_OT_fix_flight(bpy.types.Operator):
+class OVERLAP_ASSIST_OT_fix_flight(OnArmature, bpy.types.Operator):
     """Put the body's center of mass on the exact ballistic arc in every flight, on its own removable NLA layer (the animation itself is not changed)"""
     bl_idname = "overlap_assist.fix_flight"
     bl_label = "Fix Flight"
-    bl_options = {'REGISTER', 'UNDO'}
 
     mode: EnumProperty(name="Keep", items=FIX_MODES, default="KEEP_CONTACTS",
                        description="What the corrected arc keeps from the animation (default: the armature's setting)")
@@ -52,10 +46,6 @@ class OVERLAP_ASSIST_OT_fix_flight(bpy.types.Operator):
                                             "after touchdown (default: the armature's setting)")
     influence: FloatProperty(name="Influence", default=1.0, min=0.0, max=1.0, subtype='FACTOR',
                              description="How much of the correction is mixed over the animation")
-
-    @classmethod
-    def poll(cls, context):
-        return armature_poll(cls, context)
 
     def execute(self, context):
         obj, scene = context.active_object, context.scene

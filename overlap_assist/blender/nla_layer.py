@@ -9,7 +9,33 @@ and taken back by undo like any other edit.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 from . import anim_data
+
+
+@dataclass(frozen=True)
+class LayerKind:
+    """One kind of our layers: its track name, the key of its record on its action, its error
+    type and the words of the target check."""
+    track_name: str
+    info_key: str
+    error: type
+    select_text: str
+    layer_text: str
+
+    def action_name(self, obj) -> str:
+        return f"{obj.name} {self.track_name}"
+
+    def find(self, obj):
+        """(track, strip, action) of the object's layer of this kind, or None."""
+        return find_layer(obj, self.track_name, self.info_key)
+
+    def has(self, obj) -> bool:
+        return self.find(obj) is not None
+
+    def check_object(self, obj):
+        check_layer_target(obj, self.error, self.select_text, self.layer_text)
 
 
 def find_layer(obj, track_name, info_key):

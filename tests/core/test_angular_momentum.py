@@ -224,7 +224,10 @@ def test_contact_frames_of_a_keyed_clip_are_no_spin_finding(monkeypatch):
     window = FlightWindow((takeoff_f - 1) / FPS, (touchdown_f + 0.7 - 1) / FPS)
     (check,) = check_spin(motion, [window])
     assert check.finding is None, check.finding
-    assert abs(check.change_deg_s) < 2.0
+    # Not zero: with the touchdown placed 0.7 frame late the last checked samples still see the first
+    # bend of the landing (the slope at the last airborne key uses the first key on the ground):
+    # measured 1.9 deg/s against a 61 deg/s threshold and 88 deg/s without the margin.
+    assert abs(check.change_deg_s) < 5.0
     assert check.frames[0] >= takeoff_f + am.CONTACT_MARGIN_FRAMES and check.frames[-1] <= touchdown_f + 0.7 - 2
     # Without the margin the same clip gives a spin finding: the test can fail.
     monkeypatch.setattr(am, "CONTACT_MARGIN_FRAMES", 0.0)
