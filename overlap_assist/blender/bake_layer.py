@@ -206,19 +206,8 @@ def _write_new(bag, pose, keys_by_bone):
     anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), cos, lefts, rights, types)
 
 
-def bake_influence(obj):
-    """The bake layer's influence (its key value at the strip start), or None without a bake."""
-    found = find_bake(obj)
-    return None if found is None else nla_layer.strip_influence(found[1])
-
-
-def set_bake_influence(obj, value) -> bool:
-    """Set the bake layer's influence to a constant 0..1 (replacing any keys on it)."""
-    found = find_bake(obj)
-    if found is None:
-        return False
-    nla_layer.set_strip_influence(found[1], value)
-    return True
+bake_influence = BAKE_LAYER.influence
+set_bake_influence = BAKE_LAYER.set_influence
 
 
 def add_layer(obj, first_frame, key_set, influence, static_rotations) -> str:

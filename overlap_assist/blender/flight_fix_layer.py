@@ -138,19 +138,8 @@ def _take_over_restore(obj, info) -> bool:
     return True
 
 
-def fix_influence(obj):
-    """The fix layer's influence (its key value at the strip start), or None without a fix."""
-    found = find_fix(obj)
-    return None if found is None else nla_layer.strip_influence(found[1])
-
-
-def set_fix_influence(obj, value) -> bool:
-    """Set the fix layer's influence to a constant 0..1 on its strip (saved, undoable)."""
-    found = find_fix(obj)
-    if found is None:
-        return False
-    nla_layer.set_strip_influence(found[1], value)
-    return True
+fix_influence = FIX_LAYER.influence
+set_fix_influence = FIX_LAYER.set_influence
 
 
 def fix_info(obj) -> dict:

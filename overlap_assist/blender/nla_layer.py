@@ -37,6 +37,19 @@ class LayerKind:
     def check_object(self, obj):
         check_layer_target(obj, self.error, self.select_text, self.layer_text)
 
+    def influence(self, obj):
+        """The layer's influence (its key value at the strip start), or None without the layer."""
+        found = self.find(obj)
+        return None if found is None else strip_influence(found[1])
+
+    def set_influence(self, obj, value) -> bool:
+        """Hold the layer's influence at a constant 0..1 on its strip. False without the layer."""
+        found = self.find(obj)
+        if found is None:
+            return False
+        set_strip_influence(found[1], value)
+        return True
+
 
 def find_layer(obj, track_name, info_key):
     """(track, strip, action) of the object's layer called ``track_name``, or None."""
