@@ -277,15 +277,10 @@ def _restore_pushed_base(ad, info):
 
 def remove_bake(obj) -> bool:
     """Delete the bake layer and its action; the user's action (with every edit) stays. False if none."""
-    found = find_bake(obj)
-    if found is None:
+    info = BAKE_LAYER.take_off(obj)
+    if info is None:
         return False
-    check_object(obj)
-    track, _strip, act = found
-    info = act[INFO_KEY].to_dict()
     ad = obj.animation_data
-    ad.nla_tracks.remove(track)
-    bpy.data.actions.remove(act)
     if info.get("pushed"):
         _restore_pushed_base(ad, info)
     elif info.get("combine_set") and ad.action is not None and ad.action_blend_type == 'COMBINE':

@@ -221,15 +221,10 @@ def write_fix(obj, scene, frames, offsets_m, bone_name, influence=1.0, details=N
 
 def remove_fix(obj) -> bool:
     """Delete the fix layer and its action; restore the animation data as it was. False if none."""
-    found = find_fix(obj)
-    if found is None:
+    info = FIX_LAYER.take_off(obj)
+    if info is None:
         return False
-    check_object(obj)
-    track, _strip, act = found
-    info = act[FIX_INFO_KEY].to_dict()
     ad = obj.animation_data
-    ad.nla_tracks.remove(track)
-    bpy.data.actions.remove(act)
     bake_act, bake = _bake_info(obj)
     if bake_act is not None:     # the bake stays: it puts the original state back when it goes
         bake.update({k: info[k] for k in _RESTORE_FIELDS if k in info})

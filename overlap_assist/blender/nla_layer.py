@@ -37,6 +37,20 @@ class LayerKind:
     def check_object(self, obj):
         check_layer_target(obj, self.error, self.select_text, self.layer_text)
 
+    def take_off(self, obj):
+        """Delete the layer's track and action (after the target check); returns its record as a
+        dict, or None without the layer. Putting the animation data back is the caller's."""
+        import bpy
+        found = self.find(obj)
+        if found is None:
+            return None
+        self.check_object(obj)
+        track, _strip, act = found
+        info = act[self.info_key].to_dict()
+        obj.animation_data.nla_tracks.remove(track)
+        bpy.data.actions.remove(act)
+        return info
+
     def influence(self, obj):
         """The layer's influence (its key value at the strip start), or None without the layer."""
         found = self.find(obj)
