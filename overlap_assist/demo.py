@@ -2,10 +2,18 @@
 
 Stages per clip (``run_demo``):
   1. build    scene, rig "Wren" with meshes, four chains from presets, keyed jump, side camera
+  1b. fix     (the fixed copy of a flawed clip only) the flight fix on its own NLA layer, the
+              camera opened up to frame the corrected, higher arc
   2. analyse  centre-of-mass body source → load curve on the rig, takeoff/apex/touchdown markers
   3. bake     sample → solve → key reduction (0.5°) onto the "Overlap Bake" NLA layer
   4. render   Workbench frames across the jump (baked chains visible) for the contact sheet
-Then: one .blend with both clips as scenes, a JSON summary, the HTML report, the contact sheet.
+Then: one .blend with every clip as a scene, a JSON summary, the HTML report, the contact sheet
+(one row per clip: the good jump, the floaty jump, the floaty jump with its flight fixed).
+
+The fixed copy keeps the floaty clip's takeoff and touchdown (``KEEP_CONTACTS``): its keys are the
+same, only the fix layer puts the CoM on the 1 g arc, so the row compares like with like. At 1 g
+in the same hang time the apex is about 1.3 m higher; the other mode (keep the apex) would sink
+the body through the ledges at the contacts it cannot retime, so it is the wrong picture here.
 
 Key counts per chain: all chains of a clip are baked in one call (a re-bake replaces the whole
 layer), so ``BakeStats`` covers the clip; per chain, ``keys_after`` is counted from the bake
@@ -25,6 +33,23 @@ TOLERANCE_DEG = 0.5
 FULL = {"tile": (320, 400), "scale": 2}
 SMALL = {"tile": (96, 120), "scale": 1}
 SHEET_EVENTS = ("crouch", "push-off", "takeoff", "apex", "touchdown", "whip", "settle")
+FIXED_CLIPS = ("floaty_jump",)
+"""Clips also shown with their flight fixed (a copy of the clip, in its own scene)."""
+FIX_MODE = "KEEP_CONTACTS"
+FIXED_SUFFIX = "_fixed"
+
+
+def demo_clips():
+    """(DemoJump, fix mode or None) in sheet and report order: each clip, its fixed copy after it."""
+    import dataclasses
+    from .blender import demo_character
+    out = []
+    for jump in demo_character.DEMO_JUMPS:
+        out.append((jump, None))
+        if jump.name in FIXED_CLIPS:
+            out.append((dataclasses.replace(jump, name=jump.name + FIXED_SUFFIX, title=jump.title + ", flight fixed"),
+                        FIX_MODE))
+    return out
 
 
 def flags_of(result):
@@ -77,8 +102,21 @@ def per_chain_keys(obj, stats, chain_bones):
     return out
 
 
-def _clip(jump, sizes, progress):
-    """Build, analyse, bake and render one clip. Returns (record for JSON, report clip, tiles)."""
+def _apply_fix(scene, rig, mode, progress, name):
+    """The flight fix on the rig, the camera opened up to the corrected arc. Returns the JSON record."""
+    from .blender import demo_character
+    from .blender.flight_jobs import apply_fix
+    stats, fix, result, _warnings = apply_fix(rig, scene, mode)
+    raise_m = max(max(c.apex_after_m - c.apex_before_m for c in fix.flights), 0.0)
+    view_m = demo_character.frame_camera(scene, demo_character.CAMERA_VIEW_HEIGHT_M + raise_m)
+    progress(f"{name}: {stats.summary()}")
+    return {"mode": mode, "layer": stats.action_name, "bone": stats.bone, "max_offset_m": round(stats.max_offset_m, 5),
+            "apex_raise_m": round(raise_m, 5), "view_height_m": round(view_m, 4),
+            "advice": [c.advice(result.fps) for c in fix.flights]}
+
+
+def _clip(jump, sizes, progress, fix_mode=None):
+    """Build, (fix,) analyse, bake and render one clip. Returns (record for JSON, report clip, tiles)."""
     from .blender import demo_character
     from .blender.analyze import run_analysis, summary_line, write_load_curve, write_markers
     from .blender.bake_ops import bake_chains
@@ -90,6 +128,11 @@ def _clip(jump, sizes, progress):
     t0 = time.perf_counter()
     scene, rig, _perf = demo_character.build_clip(jump, render_size=sizes["tile"])
     timings["build_s"] = time.perf_counter() - t0
+    fixed = None
+    if fix_mode:
+        t0 = time.perf_counter()
+        fixed = _apply_fix(scene, rig, fix_mode, progress, jump.name)
+        timings["fix_s"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
     result, warnings = run_analysis(rig, scene)
@@ -140,17 +183,21 @@ def _clip(jump, sizes, progress):
     from .blender.flight_jobs import report_extras
     report_clip.update(report_extras(rig, scene))   # spin per flight, CoM arc before/after the fix
     record["flight_physics"] = {k: report_clip[k] for k in ("spin", "flight_fix") if k in report_clip}
+    if fixed is not None:
+        record["fix_applied"] = fixed
     return record, report_clip, (events, tiles)
 
 
-def _row_title(jump, flags):
+def _row_title(jump, flags, fixed=None):
     if not flags.get("flight"):
         return f"{jump.title}: no flight found"
     parts = [f"{jump.title}: {flags['verdict']}"]
+    if fixed is not None:
+        parts.append(f"apex {fixed['apex_raise_m'] * 100:+.0f} cm (view {fixed['view_height_m']:.1f} m tall)")
     off = flags["arm_swing_offset_frames"]
     if off is not None:
         parts.append(f"arms {abs(off):.1f} f {'after' if off > 0 else 'before'} takeoff")
-    parts.append(f"flight accel {flags['horizontal_accel_mps2']:+.1f} m/s2")
+    parts.append(f"flight accel {round(flags['horizontal_accel_mps2'], 1) + 0.0:+.1f} m/s2")   # no "-0.0"
     return ", ".join(parts)
 
 
@@ -181,12 +228,12 @@ def run_demo(out_dir, small=False, progress=print):
     records, report_clips, rows, lines, strips = {}, [], [], [], {}
     from .blender import registered
     with registered():
-        for jump in demo_character.DEMO_JUMPS:
-            record, report_clip, (events, tiles) = _clip(jump, sizes, progress)
+        for jump, fix_mode in demo_clips():
+            record, report_clip, (events, tiles) = _clip(jump, sizes, progress, fix_mode)
             records[jump.name] = record
             report_clips.append(report_clip)
             lines.append(record["summary"])
-            row = (_row_title(jump, record["flags"]),
+            row = (_row_title(jump, record["flags"], record.get("fix_applied")),
                    [(f"{name} {frame}", tile) for (name, frame), tile in zip(events.items(), tiles)])
             rows.append(row)
             strip = os.path.join(out_dir, f"strip_{jump.name}.png")
@@ -224,6 +271,7 @@ def run_demo(out_dir, small=False, progress=print):
             json.dump(summary, f, indent=1, default=_json_default)
         os.replace(tmp, json_path)
     return {"blend": blend, "json": json_path, "report": report, "contact_sheet": sheet_path, "strips": strips,
+            "clips": list(records), "fixes": {k: r["fix_applied"] for k, r in records.items() if "fix_applied" in r},
             "sheet_size": layout.size, "tile_size": sizes["tile"], "summary_lines": lines,
             "flags": {k: r["flags"] for k, r in records.items()},
             "chains": {k: r["chains"] for k, r in records.items()},

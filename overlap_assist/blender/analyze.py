@@ -8,9 +8,10 @@ from ..core.body_analysis import analyse_body, analysis_to_dict
 from ..core import readout
 from ..core.errors import OverlapAssistError
 from . import anim_data
-from .selection import armature_poll
+from .selection import OnArmature
 from .sample_body import body_samples
 from .op_errors import guarded
+from .op_progress import progress_bar, report_warnings
 
 LOAD_PROPERTY = "overlap_load_g"
 """Custom property on the armature object whose F-curve shows the load factor."""
@@ -101,35 +102,26 @@ def summary_line(result):
 
 
 @guarded
-class OVERLAP_ASSIST_OT_analyze_motion(bpy.types.Operator):
+class OVERLAP_ASSIST_OT_analyze_motion(OnArmature, bpy.types.Operator):
     """Sample the rig's body motion and show the load it feels, its jump phases and a flight check"""
     bl_idname = "overlap_assist.analyze_motion"
     bl_label = "Analyze Body Motion"
-    bl_options = {'REGISTER', 'UNDO'}
-
-    @classmethod
-    def poll(cls, context):
-        return armature_poll(cls, context)
 
     def execute(self, context):
         obj, scene = context.active_object, context.scene
-        wm = context.window_manager
-        wm.progress_begin(0, 100)
         try:
-            result, warnings = run_analysis(obj, scene, lambda f: wm.progress_update(int(100 * f)))
+            with progress_bar(context) as progress:
+                result, warnings = run_analysis(obj, scene, progress)
         except OverlapAssistError as exc:
             self.report({'ERROR'}, str(exc))
             return {'CANCELLED'}
-        finally:
-            wm.progress_end()
         write_load_curve(obj, result)
         write_markers(obj, scene, result)
         summary = analysis_to_dict(result)
         summary.pop("frames"), summary.pop("load_factor")
         summary["warnings"] = warnings
         obj.overlap_assist.body.last_summary = json.dumps(summary)
-        for w in warnings:
-            self.report({'WARNING'}, w)
+        report_warnings(self, warnings)
         self.report({'INFO'}, summary_line(result))
         return {'FINISHED'}
 

@@ -41,7 +41,7 @@ import bpy
 import numpy as np
 
 from ..core.errors import OverlapAssistError
-from . import anim_data
+from . import anim_data, nla_layer
 from .pose_read import rotation_property
 
 BAKE_TRACK_NAME = "Overlap Bake"
@@ -61,35 +61,13 @@ class BakeError(OverlapAssistError):
 # Finding and checking
 # ---------------------------------------------------------------------------------------------
 
-def bake_action_name(obj) -> str:
-    return f"{obj.name} {BAKE_TRACK_NAME}"
-
-
-def find_bake(obj):
-    """(track, strip, action) of the object's bake layer, or None."""
-    ad = obj.animation_data
-    track = ad.nla_tracks.get(BAKE_TRACK_NAME) if ad else None
-    if track is None or len(track.strips) != 1:
-        return None
-    strip = track.strips[0]
-    act = strip.action
-    if act is None or INFO_KEY not in act.keys():
-        return None
-    return track, strip, act
-
-
-def has_bake(obj) -> bool:
-    return find_bake(obj) is not None
-
-
-def check_object(obj):
-    if obj is None or obj.type != 'ARMATURE':
-        raise BakeError("Select the character's armature to bake onto")
-    ad = obj.animation_data
-    if ad is not None and ad.use_tweak_mode:
-        raise BakeError(f"{obj.name} is in NLA tweak mode: leave tweak mode (Tab in the NLA editor) first")
-    if ad is not None and any(t.is_solo for t in ad.nla_tracks):
-        raise BakeError(f"An NLA track of {obj.name} is set to Solo: turn Solo off so the bake layer can play")
+BAKE_LAYER = nla_layer.LayerKind(BAKE_TRACK_NAME, INFO_KEY, BakeError, "Select the character's armature to bake onto",
+                                 "the bake layer")
+bake_action_name = BAKE_LAYER.action_name
+find_bake = BAKE_LAYER.find
+"""(track, strip, action) of the object's bake layer, or None."""
+has_bake = BAKE_LAYER.has
+check_object = BAKE_LAYER.check_object
 
 
 def _user_tracks(ad):
@@ -231,28 +209,8 @@ def _write_new(bag, pose, keys_by_bone):
     anim_data.write_bezier_curves(anim_data.new_fcurves(bag, channels), cos, lefts, rights, types)
 
 
-def _set_strip_influence(strip, value, frame):
-    """Strip influence held by one constant key (Blender ignores it unless animated)."""
-    strip.use_animated_influence = True
-    fc = strip.fcurves.find("influence")
-    anim_data.write_keys(fc, [frame], [value], 'LINEAR')
-
-
-def bake_influence(obj):
-    """The bake layer's influence (its key value at the strip start), or None without a bake."""
-    found = find_bake(obj)
-    if found is None:
-        return None
-    return found[1].fcurves.find("influence").evaluate(found[1].frame_start)
-
-
-def set_bake_influence(obj, value) -> bool:
-    """Set the bake layer's influence to a constant 0..1 (replacing any keys on it)."""
-    found = find_bake(obj)
-    if found is None:
-        return False
-    _set_strip_influence(found[1], min(max(float(value), 0.0), 1.0), found[1].frame_start)
-    return True
+bake_influence = BAKE_LAYER.influence
+set_bake_influence = BAKE_LAYER.set_influence
 
 
 def add_layer(obj, first_frame, key_set, influence, static_rotations) -> str:
@@ -273,7 +231,7 @@ def add_layer(obj, first_frame, key_set, influence, static_rotations) -> str:
     strip = track.strips.new(BAKE_TRACK_NAME, int(first_frame), act)
     strip.action_slot = slot
     strip.blend_type, strip.extrapolation = 'COMBINE', 'NOTHING'
-    _set_strip_influence(strip, influence, first_frame)
+    nla_layer.set_strip_influence(strip, influence, first_frame)
     if ad.action is not None:
         ad.action_blend_type = 'COMBINE'
     ad.use_nla = True
@@ -322,15 +280,10 @@ def _restore_pushed_base(ad, info):
 
 def remove_bake(obj) -> bool:
     """Delete the bake layer and its action; the user's action (with every edit) stays. False if none."""
-    found = find_bake(obj)
-    if found is None:
+    info = BAKE_LAYER.take_off(obj)
+    if info is None:
         return False
-    check_object(obj)
-    track, _strip, act = found
-    info = act[INFO_KEY].to_dict()
     ad = obj.animation_data
-    ad.nla_tracks.remove(track)
-    bpy.data.actions.remove(act)
     if info.get("pushed"):
         _restore_pushed_base(ad, info)
     elif info.get("combine_set") and ad.action is not None and ad.action_blend_type == 'COMBINE':

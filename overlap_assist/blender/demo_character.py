@@ -108,6 +108,10 @@ class DemoJump:
     arm_swing: str
     """'early': back in the dip, forward-up during propulsion, peaking before takeoff.
     'late': arms hang through the push and swing forward-up after takeoff (a flaw)."""
+    trunk_balance: bool = True
+    """True: the trunk turns in flight by what keeps the angular momentum constant while the
+    arms and legs move (clean). False: the trunk keeps its keyed pitch, so the limbs' motion
+    starts a spin from nothing (a flaw)."""
 
 
 DEMO_JUMPS = (
@@ -116,7 +120,7 @@ DEMO_JUMPS = (
     # The same push animated with a floaty hang (0.45 g), late arms and forward speed easing off.
     DemoJump("floaty_jump", "Floaty jump",
              JumpSpec(forward_mps=2.0, flight_gravity_mps2=0.45 * 9.80665, flight_forward_accel_mps2=-1.0),
-             "late"),
+             "late", trunk_balance=False),
 )
 
 ANKLE_HEIGHT_M = 0.09
@@ -125,6 +129,8 @@ CAMERA_VIEW_HEIGHT_M = 3.3
 """Height the portrait camera frames: the floaty apex with a raised hand still fits."""
 CAMERA_VIEW_BOTTOM_M = -0.1
 """Lowest point in view: a strip of ledge below the feet."""
+BALANCE_PASSES = 6
+"""Newton passes on the trunk's turning rate (the limbs' relative motion barely depends on it)."""
 COM_ITERATIONS = 6
 """Fixed-point passes hips ← target CoM − (CoM − hips); the legs' share shrinks each pass (< 1e-6 m)."""
 
@@ -223,62 +229,144 @@ class _Rig:
         return heads, tails, absolute
 
 
-def solve_performance(jump: DemoJump, fps, start_x=0.0, table=segs.DEMPSTER_WINTER):
-    """Hips positions and bone pitches per frame so the CoM follows the analytic jump.
+def _momentum_about_y(t_s, heads, tails, roles, table, fps):
+    """Whole-body angular momentum about the CoM along the lateral axis (per kg) and the
+    whole-body moment of inertia about that axis, by the spin check's own operator."""
+    from ..core import segment_inertia as inertia
+    from ..core.angular_momentum import SegmentMotion, angular_momentum
+    lm = segs.landmark_positions(roles, heads, tails)
+    coms = segs.segment_coms(table, lm)
+    com_k = np.stack([coms[s.name] for s in table.segments], axis=1)
+    long_axis = np.stack([lm[s.end] - lm[s.start] for s in table.segments], axis=1)
+    lateral = np.zeros_like(long_axis)
+    lateral[..., 1] = 1.0                     # every segment of the sagittal performance turns about y
+    rot = inertia.segment_frames(long_axis, lateral)
+    radii = inertia.radii_metres(table, inertia.segment_lengths(table, lm))
+    mass = np.array([s.mass_fraction for s in table.segments])
+    axes = np.tile(np.eye(3), (len(t_s), 1, 1))
+    motion = SegmentMotion(frames=1 + t_s * fps, fps=fps, mass_kg=mass, com_m=com_k, rotations=rot,
+                           radii_m=radii, body_axes=axes)
+    h, _err, _parts = angular_momentum(motion)
+    _com, tensor = inertia.whole_body_inertia(mass, com_k, radii, rot)
+    return h[:, 1], tensor[:, 1, 1]
 
-    The CoM is exact at whole frames (where the keys are); between keys Blender's Bézier
-    interpolation of hips and rotations leaves sub-millimetre differences.
 
-    Returns dict with frames (n,), hips (n, 3) metres, pitch {bone: (n,) rad}, com (n, 3),
-    heads {bone: (n, 3)}, the analytic events (s) and land_x, where the feet plant on landing.
+def _pose_for_com(rig, t, ev, pitch, theta, target, rest_com, roles, table, start_x):
+    """Hips positions and leg pitches so the CoM is on ``target``, the trunk pitched by ``theta``.
+
+    Feet: planted at the start, reach forward for the landing, planted where they touch. In
+    the air the ankles travel with the hips (in the hips' turned frame): tuck by mid-flight,
+    reach down so they arrive on the landing ledge at the touchdown instant itself (the CoM
+    and the feet land together). Returns (hips (n, 3), pitch with the legs, land_x).
     """
-    ev = jump_events(jump.spec)
-    n = int(np.ceil(ev["duration_s"] * fps)) + 1
-    frames = 1 + np.arange(n, dtype=float)
-    t = (frames - 1) / fps
-    rig = _Rig()
-    roles, _ = segs.match_roles([b[0] for b in BODY_BONES if b[0] != "root"])
-    pitch = performance_angles(ev, t, jump.arm_swing, fps)
-    rest_heads, rest_tails, _ = rig.fk(np.tile([0, 0, 0.95], (n, 1)), {})
-    rest_com, _ = segs.whole_body_com(table, segs.landmark_positions(roles, rest_heads, rest_tails))
-    target = rest_com + jump_position(jump.spec, t) - [0, 0, jump.spec.start_height_m] + [start_x, 0, 0]
-    hips = np.tile([start_x, 0, 0.95], (n, 1)) + (target - rest_com)
+    n = len(t)
     rows = {b[0]: b for b in BODY_BONES}
     l1, l2 = (float(np.linalg.norm(np.subtract(rows[b][3], rows[b][2]))) for b in ("thigh.L", "shin.L"))
     to, td = ev["takeoff_s"], ev["touchdown_s"]
     air = (t > to) & (t < td)
     u = np.clip((t - to) / (td - to), 0, 1)
+    pitch = dict(pitch)
+    if np.any(theta):
+        pitch["hips"] = theta
+    hips = np.tile([start_x, 0, 0.95], (n, 1)) + (target - rest_com)
+    down = np.array([0.0, 0.0, -1.0])
+    plant0 = np.tile([start_x, 0, ANKLE_HEIGHT_M], (n, 1))
+    i_to = max(int(np.searchsorted(t, to, side="right")) - 1, 0)      # last sample on the ground
+    theta_td = float(np.interp(td, t, theta))
     for _ in range(COM_ITERATIONS):
-        hip_joint = hips.copy()
-        # Feet: planted at the start, reach forward for the landing, planted where they touch.
-        plant0 = np.tile([start_x, 0, ANKLE_HEIGHT_M], (n, 1))
-        i_to = int(np.searchsorted(t, to))
-        i_td = int(np.searchsorted(t, td))
-        th0, sh0 = leg_ik(hip_joint, plant0, l1, l2)
-        ankle0 = hip_joint + _rot_y(th0, np.tile([0, 0, -l1], (n, 1))) + _rot_y(sh0, np.tile([0, 0, -l2], (n, 1)))
-        rel_to = ankle0[max(i_to - 1, 0)] - hip_joint[max(i_to - 1, 0)]
+        th0, sh0 = leg_ik(hips, plant0, l1, l2)
+        ankle0 = hips + _rot_y(th0, np.tile(l1 * down, (n, 1))) + _rot_y(sh0, np.tile(l2 * down, (n, 1)))
+        rel_to = ankle0[i_to] - hips[i_to]
         rel_tuck = np.array([-0.12, 0, -0.55])
-        land_z = ANKLE_HEIGHT_M - hip_joint[min(i_td, n - 1), 2]
-        rel_land = np.array([0.16, 0, max(land_z, -(l1 + l2) * 0.995)])
-        # In the air the ankles travel with the hips: tuck by mid-flight, reach down for the landing.
+        hip_td = np.array([np.interp(td, t, hips[:, k]) for k in range(3)])
+        land_world = np.array([0.16, 0, max(ANKLE_HEIGHT_M - hip_td[2], -(l1 + l2) * 0.995)])
+        rel_land = _rot_y(np.array([-theta_td]), land_world[None])[0]    # in the hips' turned frame
         rel = np.where((u < 0.5)[:, None], rel_to + (rel_tuck - rel_to) * _ease(2 * u)[:, None],
                        rel_tuck + (rel_land - rel_tuck) * _ease(2 * u - 1)[:, None])
-        land_x = hip_joint[min(i_td, n - 1), 0] + rel_land[0]
-        target_ankle = np.where(air[:, None], hip_joint + rel, plant0)
+        land_x = hip_td[0] + land_world[0]
+        target_ankle = np.where(air[:, None], hips + _rot_y(theta, rel), plant0)
         target_ankle[t >= td] = [land_x, 0, ANKLE_HEIGHT_M]
-        thigh, shin = leg_ik(hip_joint, target_ankle, l1, l2)
+        thigh, shin = leg_ik(hips, target_ankle, l1, l2)
         foot_rel = np.where(air, np.radians(25) * np.sin(np.pi * u), 0.0)
         for side in "LR":
-            pitch[f"thigh.{side}"] = thigh
+            pitch[f"thigh.{side}"] = thigh - theta
             pitch[f"shin.{side}"] = shin - thigh
             pitch[f"foot.{side}"] = -shin + foot_rel
         heads, tails, _ = rig.fk(hips, pitch)
         com, _ = segs.whole_body_com(table, segs.landmark_positions(roles, heads, tails))
         hips = hips + (target - com)
+    return hips, pitch, land_x
+
+
+def _landing_return(t, td, land_end, theta_td, rate_td):
+    """Trunk pitch after touchdown: from (theta, rate) at touchdown back to upright by the end
+    of the landing (cubic Hermite; the ground's forces do the turning)."""
+    span = max(land_end - td, 1e-3)
+    s = np.clip((t - td) / span, 0.0, 1.0)
+    return theta_td * (2 * s**3 - 3 * s**2 + 1) + rate_td * span * (s**3 - 2 * s**2 + s)
+
+
+def _takeoff_lead(t, start, to, rate_to):
+    """Trunk pitch during the push: from upright and still at ``start`` to upright turning at
+    ``rate_to`` at takeoff (cubic Hermite; the push gives the body its takeoff spin)."""
+    span = max(to - start, 1e-3)
+    s = np.clip((t - start) / span, 0.0, 1.0)
+    return rate_to * span * (s**3 - s**2)
+
+
+def solve_performance(jump: DemoJump, fps, start_x=0.0, table=segs.DEMPSTER_WINTER, samples_per_frame=8):
+    """Hips positions and bone pitches per frame so the CoM follows the analytic jump.
+
+    The CoM is exact at whole frames (where the keys are); between keys Blender's Bézier
+    interpolation of hips and rotations leaves sub-millimetre differences. The pose is solved on
+    a grid of ``samples_per_frame`` samples per frame (the angular momentum needs the motion
+    between keys) and returned at whole frames.
+
+    With ``jump.trunk_balance`` the hips (and with them the whole body) turn in flight by what
+    keeps the whole-body angular momentum about the CoM at its takeoff value while the limbs
+    move, as a body in the air must (``_momentum_about_y`` uses the spin check's own operator).
+
+    Returns dict with frames (n,), hips (n, 3) metres, pitch {bone: (n,) rad}, com (n, 3),
+    heads {bone: (n, 3)}, the analytic events (s), land_x (where the feet plant on landing),
+    and the fine grid's t_s, angular momentum h_y (per kg) and trunk pitch theta (rad).
+    """
+    ev = jump_events(jump.spec)
+    n_frames = int(np.ceil(ev["duration_s"] * fps)) + 1
+    spf = int(samples_per_frame)
+    t = np.arange((n_frames - 1) * spf + 1, dtype=float) / (fps * spf)
+    rig = _Rig()
+    roles, _ = segs.match_roles([b[0] for b in BODY_BONES if b[0] != "root"])
+    upper = performance_angles(ev, t, jump.arm_swing, fps)
+    rest_heads, rest_tails, _ = rig.fk(np.tile([0, 0, 0.95], (len(t), 1)), {})
+    rest_com, _ = segs.whole_body_com(table, segs.landmark_positions(roles, rest_heads, rest_tails))
+    target = rest_com + jump_position(jump.spec, t) - [0, 0, jump.spec.start_height_m] + [start_x, 0, 0]
+    to, td = ev["takeoff_s"], ev["touchdown_s"]
+    air = (t > to) & (t < td)
+    theta, rate = np.zeros(len(t)), np.zeros(len(t))
+    for _ in range(BALANCE_PASSES if jump.trunk_balance else 1):
+        hips, pitch, land_x = _pose_for_com(rig, t, ev, upper, theta, target, rest_com, roles, table, start_x)
+        if not jump.trunk_balance:
+            break
+        heads, tails, _ = rig.fk(hips, pitch)
+        h_y, inertia_y = _momentum_about_y(t, heads, tails, roles, table, fps)
+        # Newton step on the turning rate: an extra rate w of the whole body adds I w to H. The
+        # takeoff momentum h0 is the one that brings the trunk back upright at touchdown.
+        step = np.where(air, rate - np.nan_to_num(h_y) / inertia_y, 0.0)
+        h0 = -np.sum(np.where(air, step, 0.0)) / np.sum(np.where(air, 1.0 / inertia_y, 0.0))
+        rate = np.where(air, step + h0 / inertia_y, 0.0)
+        theta = np.concatenate([[0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * np.diff(t))])
+        theta_td, rate_td = float(np.interp(td, t, theta)), float(np.interp(td, t, rate))
+        rate_to = float(rate[np.flatnonzero(air)[0]])
+        theta = np.where(t < td, theta, _landing_return(t, td, ev["landing_end_s"], theta_td, rate_td))
+        theta = np.where(t <= to, _takeoff_lead(t, ev["lowest_s"], to, rate_to), theta)
     heads, tails, _ = rig.fk(hips, pitch)
     com, _ = segs.whole_body_com(table, segs.landmark_positions(roles, heads, tails))
-    return {"frames": frames, "hips": hips, "pitch": pitch, "com": com, "events": ev, "land_x": land_x,
-            "heads": heads}
+    h_y, _inertia = _momentum_about_y(t, heads, tails, roles, table, fps)
+    whole = slice(0, None, spf)
+    return {"frames": 1 + np.arange(n_frames, dtype=float), "hips": hips[whole],
+            "pitch": {k: v[whole] for k, v in pitch.items()}, "com": com[whole], "events": ev,
+            "land_x": land_x, "heads": {k: v[whole] for k, v in heads.items()},
+            "t_s": t, "h_y": h_y, "theta": theta}
 
 
 # ------------------------------------------------------------------ keys
@@ -429,6 +517,16 @@ def build_set(scene, collection, land_x, frames, follow_x, small=False):
     world.color = PALETTE["sky"]
     scene.world = world
     return cam
+
+
+def frame_camera(scene, view_height_m):
+    """Open the side camera up to ``view_height_m`` of height from the same ledge strip at the
+    bottom (no smaller than the standard view). Returns the view height set."""
+    height = max(float(view_height_m), CAMERA_VIEW_HEIGHT_M)
+    cam = scene.camera
+    cam.data.ortho_scale = height
+    cam.location.z = CAMERA_VIEW_BOTTOM_M + 0.5 * height
+    return height
 
 
 def setup_render(scene, width, height):

@@ -23,7 +23,8 @@ the fix is written over a bake, it takes the bake's record over (the bake then r
 and when the fix is removed while a bake exists it hands its record to the bake, so whichever
 layer goes last puts the original back. A bake in the earlier arrangement (the user's action
 pushed into an "Overlap Base" strip, no active action) is left as it is: the fix goes between
-the base strip and the bake.
+the base strip and the bake, and takes the blend type over the same way, so a bake removed first
+puts the user's action back at COMBINE under which the fix still plays.
 
 A root location that nothing animates is written absolute (its static value + offset, COMBINE
 over zero) and its static value is put back on removal.
@@ -36,7 +37,7 @@ import bpy
 import numpy as np
 
 from ..core.errors import OverlapAssistError
-from . import anim_data
+from . import anim_data, nla_layer
 from . import bake_layer
 from .bake_layer import find_bake
 
@@ -63,35 +64,13 @@ class FixStats:
                 f"(largest shift {self.max_offset_m * 100:.1f} cm)")
 
 
-def fix_action_name(obj) -> str:
-    return f"{obj.name} {FIX_TRACK_NAME}"
-
-
-def find_fix(obj):
-    """(track, strip, action) of the object's flight-fix layer, or None."""
-    ad = obj.animation_data
-    track = ad.nla_tracks.get(FIX_TRACK_NAME) if ad else None
-    if track is None or len(track.strips) != 1:
-        return None
-    strip = track.strips[0]
-    act = strip.action
-    if act is None or FIX_INFO_KEY not in act.keys():
-        return None
-    return track, strip, act
-
-
-def has_fix(obj) -> bool:
-    return find_fix(obj) is not None
-
-
-def check_object(obj):
-    if obj is None or obj.type != 'ARMATURE':
-        raise FlightFixError("Select the character's armature to fix its flight")
-    ad = obj.animation_data
-    if ad is not None and ad.use_tweak_mode:
-        raise FlightFixError(f"{obj.name} is in NLA tweak mode: leave tweak mode (Tab in the NLA editor) first")
-    if ad is not None and any(t.is_solo for t in ad.nla_tracks):
-        raise FlightFixError(f"An NLA track of {obj.name} is set to Solo: turn Solo off so the fix layer can play")
+FIX_LAYER = nla_layer.LayerKind(FIX_TRACK_NAME, FIX_INFO_KEY, FlightFixError,
+                                "Select the character's armature to fix its flight", "the fix layer")
+fix_action_name = FIX_LAYER.action_name
+find_fix = FIX_LAYER.find
+"""(track, strip, action) of the object's flight-fix layer, or None."""
+has_fix = FIX_LAYER.has
+check_object = FIX_LAYER.check_object
 
 
 def fix_bone(obj, body_bone=""):
@@ -149,31 +128,18 @@ def _take_over_restore(obj, info) -> bool:
     for k in _RESTORE_FIELDS:
         if k in bake:
             info[k] = bake[k]
-    if bake.get("combine_set"):
+    if bake.get("combine_set") or bake.get("pushed"):
+        # The bake set COMBINE, or (earlier arrangement) will put the user's action back when it goes:
+        # from now on it leaves COMBINE for the fix, and the fix restores the original.
         bake["blend_type"] = 'COMBINE'
+        info["combine_set"] = 1
     bake["use_nla"], bake["created_animdata"] = 1, 0
     act[bake_layer.INFO_KEY] = bake
     return True
 
 
-def _set_strip_influence(strip, value, frame):
-    strip.use_animated_influence = True
-    anim_data.write_keys(strip.fcurves.find("influence"), [frame], [value], 'LINEAR')
-
-
-def fix_influence(obj):
-    found = find_fix(obj)
-    if found is None:
-        return None
-    return found[1].fcurves.find("influence").evaluate(found[1].frame_start)
-
-
-def set_fix_influence(obj, value) -> bool:
-    found = find_fix(obj)
-    if found is None:
-        return False
-    _set_strip_influence(found[1], min(max(float(value), 0.0), 1.0), found[1].frame_start)
-    return True
+fix_influence = FIX_LAYER.influence
+set_fix_influence = FIX_LAYER.set_influence
 
 
 def fix_info(obj) -> dict:
@@ -244,7 +210,7 @@ def write_fix(obj, scene, frames, offsets_m, bone_name, influence=1.0, details=N
     strip = track.strips.new(FIX_TRACK_NAME, int(frames[0]), act)
     strip.action_slot = slot
     strip.blend_type, strip.extrapolation = 'COMBINE', 'NOTHING'
-    _set_strip_influence(strip, influence, frames[0])
+    nla_layer.set_strip_influence(strip, influence, frames[0])
     if ad.action is not None:
         ad.action_blend_type = 'COMBINE'
     ad.use_nla = True
@@ -255,15 +221,10 @@ def write_fix(obj, scene, frames, offsets_m, bone_name, influence=1.0, details=N
 
 def remove_fix(obj) -> bool:
     """Delete the fix layer and its action; restore the animation data as it was. False if none."""
-    found = find_fix(obj)
-    if found is None:
+    info = FIX_LAYER.take_off(obj)
+    if info is None:
         return False
-    check_object(obj)
-    track, _strip, act = found
-    info = act[FIX_INFO_KEY].to_dict()
     ad = obj.animation_data
-    ad.nla_tracks.remove(track)
-    bpy.data.actions.remove(act)
     bake_act, bake = _bake_info(obj)
     if bake_act is not None:     # the bake stays: it puts the original state back when it goes
         bake.update({k: info[k] for k in _RESTORE_FIELDS if k in info})

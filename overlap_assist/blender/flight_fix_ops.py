@@ -1,80 +1,61 @@
-"""Operators: Check Spin, Fix Flight, Remove Flight Fix (thin: settings -> flight_jobs -> report)."""
+"""Operators: Check Spin, Fix Flight, Remove Flight Fix (thin: settings -> flight_jobs -> report).
+
+Fix Flight's choices (what to keep, the blend) live on the armature (``body.fix_mode``,
+``body.fix_blend_frames``) so they are saved with the file; the operator's own properties, when
+a caller sets them, win (``flight_jobs.apply_fix`` stores the choices a fix was made with). The layer's influence is its strip's own value,
+edited through ``body.fix_influence``.
+"""
 import bpy
 from bpy.props import EnumProperty, FloatProperty
 
 from ..core.flight_fix import BLEND_FRAMES
 from . import flight_fix_layer, flight_jobs
 from .op_errors import guarded
-from .selection import armature_poll
-
-FIX_MODES = (
-    ("KEEP_CONTACTS", "Keep contacts", "Takeoff and touchdown stay where and when they are; the apex moves"),
-    ("KEEP_APEX", "Keep apex", "The apex stays; the frames to move takeoff and touchdown are advised, not changed"),
-)
-
-
-def _progress(context):
-    wm = context.window_manager
-    wm.progress_begin(0, 100)
-    return wm, (lambda f: wm.progress_update(int(100 * f)))
+from .op_progress import progress_bar, report_warnings
+from .properties import FIX_MODES
+from .selection import OnArmature, armature_poll
 
 
 @guarded
-class OVERLAP_ASSIST_OT_check_spin(bpy.types.Operator):
+class OVERLAP_ASSIST_OT_check_spin(OnArmature, bpy.types.Operator):
     """Measure the whole body's angular momentum in each flight and report spin that starts or stops with nothing to push against"""
     bl_idname = "overlap_assist.check_spin"
     bl_label = "Check Spin"
-    bl_options = {'REGISTER', 'UNDO'}
-
-    @classmethod
-    def poll(cls, context):
-        return armature_poll(cls, context)
 
     def execute(self, context):
         obj, scene = context.active_object, context.scene
-        wm, progress = _progress(context)
-        try:   # a domain error becomes its one line through @guarded
+        with progress_bar(context) as progress:   # a domain error becomes its one line through @guarded
             _result, checks, warnings = flight_jobs.run_spin_check(obj, scene, progress)
-        finally:
-            wm.progress_end()
         flight_jobs.store_spin_summary(obj, checks)
-        for w in warnings:
-            self.report({'WARNING'}, w)
+        report_warnings(self, warnings)
         found = [c for c in checks if c.finding]
         self.report({'WARNING'} if found else {'INFO'}, flight_jobs.spin_summary_line(checks))
         return {'FINISHED'}
 
 
 @guarded
-class OVERLAP_ASSIST_OT_fix_flight(bpy.types.Operator):
+class OVERLAP_ASSIST_OT_fix_flight(OnArmature, bpy.types.Operator):
     """Put the body's center of mass on the exact ballistic arc in every flight, on its own removable NLA layer (the animation itself is not changed)"""
     bl_idname = "overlap_assist.fix_flight"
     bl_label = "Fix Flight"
-    bl_options = {'REGISTER', 'UNDO'}
 
     mode: EnumProperty(name="Keep", items=FIX_MODES, default="KEEP_CONTACTS",
-                       description="What the corrected arc keeps from the animation")
+                       description="What the corrected arc keeps from the animation (default: the armature's setting)")
     blend_frames: FloatProperty(name="Blend (frames)", default=BLEND_FRAMES, min=0.0, max=12.0,
                                 description="Frames over which the correction fades in before takeoff and out "
-                                            "after touchdown")
+                                            "after touchdown (default: the armature's setting)")
     influence: FloatProperty(name="Influence", default=1.0, min=0.0, max=1.0, subtype='FACTOR',
                              description="How much of the correction is mixed over the animation")
 
-    @classmethod
-    def poll(cls, context):
-        return armature_poll(cls, context)
-
     def execute(self, context):
         obj, scene = context.active_object, context.scene
-        wm, progress = _progress(context)
-        try:
-            stats, fix, result, warnings = flight_jobs.apply_fix(obj, scene, self.mode, self.blend_frames,
-                                                                 self.influence, progress)
-        finally:
-            wm.progress_end()
+        body = obj.overlap_assist.body
+        mode = self.mode if self.properties.is_property_set("mode") else body.fix_mode
+        blend = self.blend_frames if self.properties.is_property_set("blend_frames") else body.fix_blend_frames
+        with progress_bar(context) as progress:
+            stats, fix, result, warnings = flight_jobs.apply_fix(obj, scene, mode, blend, self.influence, progress)
         context.view_layer.update()
-        for w in warnings:
-            self.report({'WARNING'}, w)
+        report_warnings(self, warnings)
         advice = "; ".join(c.advice(result.fps) for c in fix.flights)
         self.report({'INFO'}, f"{stats.summary()}: {advice}")
         return {'FINISHED'}

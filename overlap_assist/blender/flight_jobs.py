@@ -91,7 +91,8 @@ def compute_fix(obj, scene, mode="KEEP_CONTACTS", blend_frames=3.0, progress=Non
 
 
 def apply_fix(obj, scene, mode="KEEP_CONTACTS", blend_frames=3.0, influence=1.0, progress=None):
-    """Compute and write the fix layer. Returns (FixStats, FlightFix, BodyAnalysis, warnings)."""
+    """Compute and write the fix layer, store ``mode`` and ``blend_frames`` on the armature's body
+    settings (the panel's choices). Returns (FixStats, FlightFix, BodyAnalysis, warnings)."""
     flight_fix_layer.check_object(obj)
     fix, result, frames, warnings = compute_fix(obj, scene, mode, blend_frames, progress)
     whole = np.isclose(frames, np.round(frames))
@@ -100,6 +101,8 @@ def apply_fix(obj, scene, mode="KEEP_CONTACTS", blend_frames=3.0, influence=1.0,
     details = {"mode": mode, "blend_frames": float(blend_frames), "summary": json.dumps(summary)}
     stats = flight_fix_layer.write_fix(obj, scene, np.round(frames[whole]), fix.offsets_m[whole], bone,
                                        influence, details)
+    settings = obj.overlap_assist.body      # the choices the layer was made with: saved with the file
+    settings.fix_mode, settings.fix_blend_frames = mode, float(blend_frames)
     if flight_fix_layer.find_bake(obj) is not None:
         warnings = warnings + ["the chains were baked on the body before this fix: bake them again so they "
                                "follow the fixed flight"]

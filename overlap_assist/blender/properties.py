@@ -8,6 +8,7 @@ from bpy.props import BoolProperty, EnumProperty, FloatProperty, IntProperty, St
 
 from ..core import constants as C
 from ..core.body_types import AnalysisSettings
+from ..core.flight_fix import BLEND_FRAMES
 from . import chain_props
 
 BODY_SOURCES = (
@@ -20,10 +21,26 @@ SEGMENT_TABLES = (
     ("de_leva_male", "de Leva 1996, male", "de Leva 1996, Table 4, males"),
     ("de_leva_female", "de Leva 1996, female", "de Leva 1996, Table 4, females"),
 )
+FIX_MODES = (
+    ("KEEP_CONTACTS", "Keep contacts", "Takeoff and touchdown stay where and when they are; the apex moves"),
+    ("KEEP_APEX", "Keep apex", "The apex stays; the frames to move takeoff and touchdown are advised, not changed"),
+)
 GRAVITY_SOURCES = (
     ("SCENE", "Scene gravity", "The scene's gravity vector (Scene Properties > Gravity), in scene units"),
     ("STANDARD", "Standard gravity", "9.80665 m/s² straight down, whatever the scene says"),
 )
+
+
+def _get_fix_influence(self):
+    from . import flight_fix_layer
+    value = flight_fix_layer.fix_influence(self.id_data)
+    return 1.0 if value is None else float(value)
+
+
+def _set_fix_influence(self, value):
+    from . import flight_fix_layer
+    if flight_fix_layer.set_fix_influence(self.id_data, value):
+        self.id_data.update_tag(refresh={'TIME'})
 
 
 class OverlapAssistBodySettings(bpy.types.PropertyGroup):
@@ -60,6 +77,15 @@ class OverlapAssistBodySettings(bpy.types.PropertyGroup):
                                   description="Analyze a chosen range instead of the scene's playback range (its preview range when that is on)")
     frame_start: IntProperty(name="Start", default=1)
     frame_end: IntProperty(name="End", default=250)
+    fix_mode: EnumProperty(name="Keep", items=FIX_MODES, default="KEEP_CONTACTS",
+                           description="What Fix Flight's corrected arc keeps from the animation")
+    fix_blend_frames: FloatProperty(name="Blend (frames)", default=BLEND_FRAMES, min=0.0, max=12.0,
+                                    description="Frames over which Fix Flight fades its correction in before "
+                                                "takeoff and out after touchdown")
+    fix_influence: FloatProperty(name="Influence", min=0.0, max=1.0, subtype='FACTOR',
+                                 get=_get_fix_influence, set=_set_fix_influence,
+                                 description="How much of the flight fix is mixed over the animation (kept on "
+                                             "the fix layer's strip itself)")
     owned_markers: StringProperty(name="Markers", default="", options={'HIDDEN'},
                                   description="Names of the timeline markers the last analysis set (JSON)")
     last_summary: StringProperty(name="Last result", default="",

@@ -10,6 +10,16 @@ def armature_poll(cls, context):
     return True
 
 
+class OnArmature:
+    """Mixin for an operator on the active armature that changes the file: one undo step, and a
+    poll that says what to select."""
+    bl_options = {'REGISTER', 'UNDO'}
+
+    @classmethod
+    def poll(cls, context):
+        return armature_poll(cls, context)
+
+
 def bone_selected(obj, name):
     """Is the pose bone selected? (5.x: PoseBone.select; 4.5: Bone.select)."""
     pb = obj.pose.bones.get(name)

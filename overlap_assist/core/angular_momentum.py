@@ -52,6 +52,15 @@ SAMPLING_SAFETY = 3.0
 """Multiplier on Richardson's estimate of the differentiation error (the estimate itself is
 only the leading term)."""
 
+CONTACT_MARGIN_FRAMES = 2.0
+"""Frames left out after takeoff and before touchdown. Keys interpolated as Bezier curves carry
+a contact's push or impact into the flight: an automatic handle's slope at a key is set by the
+keys either side (Blender's auto and auto-clamped handles), so with a key on every frame the
+curve between two airborne keys still bends with the ground phase until the second key after
+the contact, up to two frames from it. A contact found from sampled feet is itself placed to
+within a fraction of a frame. Over those frames H changes through forces the flight check
+cannot see, so they are no evidence of a spin from nothing."""
+
 MIN_SPIN_CHANGE_DEG_S = 20.0
 """Smallest whole-body spin change reported (deg/s): over a half-second flight that is 10
 degrees of unexplained rotation (common practice: about what passes unnoticed on screen)."""
@@ -118,7 +127,8 @@ class SpinCheck:
     touchdown_frame: float
     kind: str
     frames: np.ndarray
-    """Samples checked (the differences' stencils lie inside the flight), shape (m,)."""
+    """Samples checked (the differences' stencils lie inside the flight less ``CONTACT_MARGIN_FRAMES``
+    at each end), shape (m,)."""
     h_body: np.ndarray
     """H per kg of body mass in the body's own axes (left, forward, up), m^2/s, shape (m, 3)."""
     change_deg_s: float
@@ -206,10 +216,11 @@ def check_spin(motion: SegmentMotion, windows: Sequence[FlightWindow]) -> tuple:
     m = np.asarray(motion.mass_kg, dtype=float)
     _com, inertia = whole_body_inertia(m, motion.com_m, motion.radii_m, motion.rotations)
     floor = np.deg2rad(MIN_SPIN_CHANGE_DEG_S)
+    margin_s = CONTACT_MARGIN_FRAMES / motion.fps
     out = []
     for w in windows:
-        sel = np.flatnonzero((t - 2 * dt >= w.takeoff_s - 1e-9) & (t + 2 * dt <= w.touchdown_s + 1e-9)
-                             & np.isfinite(err[:, 0]))
+        first, last = w.takeoff_s + margin_s, w.touchdown_s - margin_s
+        sel = np.flatnonzero((t - 2 * dt >= first - 1e-9) & (t + 2 * dt <= last + 1e-9) & np.isfinite(err[:, 0]))
         if sel.size < 3:
             continue
         j0 = sel[0]

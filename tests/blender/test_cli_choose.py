@@ -24,7 +24,8 @@ def one_error(proc, fragment):
 
 @pytest.fixture(scope="module")
 def demo_file(tmp_path_factory):
-    """The demo's own file: two scenes (good_jump, floaty_jump), one rig in each, chains stored."""
+    """The demo's own file: three scenes (good_jump, floaty_jump, floaty_jump_fixed: the floaty clip with
+    its flight fixed), one rig in each, chains stored."""
     out = tmp_path_factory.mktemp("demo")
     proc = run_cli("demo", "--out", str(out))
     assert proc.returncode == 0, proc.stderr[-3000:]
@@ -54,7 +55,11 @@ def test_analyze_without_choice_takes_every_armature_that_moves(demo_file):
     assert proc.returncode == 0, proc.stderr
     rows = [json.loads(ln) for ln in proc.stdout.splitlines()]
     assert {(r["armature"], r["scene"]) for r in rows} == {("Wren_good_jump", "good_jump"),
-                                                          ("Wren_floaty_jump", "floaty_jump")}
+                                                          ("Wren_floaty_jump", "floaty_jump"),
+                                                          ("Wren_floaty_jump_fixed", "floaty_jump_fixed")}
+    # The fixed copy plays its fix layer: a ballistic flight.
+    fixed = next(r for r in rows if r["scene"] == "floaty_jump_fixed")
+    assert fixed["flights"][0]["verdict"].startswith("ballistic")
 
 
 def test_simulate_and_bake_answer_for_the_scene_asked(demo_file, tmp_path):
@@ -75,14 +80,14 @@ def test_simulate_and_bake_answer_for_the_scene_asked(demo_file, tmp_path):
     # The demo baked both rigs with key reduction; only the floaty rig was baked again (every frame).
     rebaked = {o.name: f"{b['keys_written']} keys" in o.overlap_assist.last_bake
                for o in bpy.data.objects if o.type == 'ARMATURE'}
-    assert rebaked == {"Wren_floaty_jump": True, "Wren_good_jump": False}
+    assert rebaked == {"Wren_floaty_jump": True, "Wren_good_jump": False, "Wren_floaty_jump_fixed": False}
     assert bpy.context.window.scene.name == active  # the file's active scene is left as it was
 
 
 def test_simulate_lists_the_candidates_when_ambiguous(demo_file):
     line = one_error(run_cli("simulate", demo_file), "choose one with --armature")
     assert "Wren_floaty_jump" in line and "Wren_good_jump" in line
-    one_error(run_cli("analyze", demo_file, "--scene", "nonesuch"), "scenes in the file: floaty_jump, good_jump")
+    one_error(run_cli("analyze", demo_file, "--scene", "nonesuch"), "scenes in the file: floaty_jump, floaty_jump_fixed, good_jump")
     one_error(run_cli("analyze", demo_file, "--scene", "good_jump", "--armature", "Wren_floaty_jump"),
               "no armature named 'Wren_floaty_jump' in scene 'good_jump'")
 

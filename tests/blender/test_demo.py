@@ -10,9 +10,12 @@ import pytest
 from overlap_assist.blender.contact_sheet import SheetLayout
 from overlap_assist.blender.demo_character import CHAINS, DEMO_JUMPS
 from overlap_assist.core.constants import FLOATY_RATIO, HORIZONTAL_EASE_MPS2, STANDARD_GRAVITY_MPS2
-from overlap_assist.demo import FULL, SHEET_EVENTS, SMALL, run_demo
+from overlap_assist.blender.flight_fix_layer import FIX_TRACK_NAME
+from overlap_assist.demo import FIXED_SUFFIX, FULL, SHEET_EVENTS, SMALL, run_demo
 
 GOOD, FLOATY = (j.name for j in DEMO_JUMPS)
+FIXED = FLOATY + FIXED_SUFFIX
+ROWS = (GOOD, FLOATY, FIXED)
 
 
 @pytest.fixture(scope="module")
@@ -80,8 +83,38 @@ def test_every_chain_is_baked_with_fewer_keys_and_counts_add_up(demo):
         assert set(clip["timings_s"]) >= {"build_s", "analyse_s", "simulate_and_bake_s", "render_s"}
 
 
+def test_the_flawed_clip_has_a_spin_finding_and_its_fixed_copy_is_ballistic(demo):
+    saved = json.loads(open(demo["json"], encoding="utf-8").read())
+    clips = saved["clips"]
+    (good,) = clips[GOOD]["flight_physics"]["spin"]
+    (bad,) = clips[FLOATY]["flight_physics"]["spin"]
+    # The good jump turns its trunk in flight by what keeps H constant: no finding. The floaty
+    # one swings its arms late with the trunk held: H changes with nothing to push on.
+    assert good["finding"] is None and abs(good["change_deg_per_s"]) < good["threshold_deg_per_s"]
+    assert bad["finding"] is not None and abs(bad["change_deg_per_s"]) > bad["threshold_deg_per_s"]
+    # The fixed copy: same keys, the fix layer puts the CoM on the 1 g arc through the same contacts.
+    fixed = clips[FIXED]
+    assert fixed["flags"]["verdict"].startswith("ballistic") and not fixed["flags"]["floaty"]
+    assert abs(fixed["flags"]["gravity_ratio"] - 1.0) < 0.03
+    (fl,) = fixed["analysis"]["flights"]
+    (fl0,) = clips[FLOATY]["analysis"]["flights"]
+    assert abs(fl["takeoff_frame"] - fl0["takeoff_frame"]) < 0.1 and abs(fl["touchdown_frame"] - fl0["touchdown_frame"]) < 0.1
+    # Apex over the contacts of a flight lasting T: g T^2 / 8 (Halliday, Resnick & Walker, Fundamentals
+    # of Physics, ch. 4); from 0.45 g to 1 g in the same T it rises by (1 - 0.45) g T^2 / 8.
+    t_s = (fl0["touchdown_frame"] - fl0["takeoff_frame"]) / fixed["analysis"]["fps"]
+    g, g_floaty = STANDARD_GRAVITY_MPS2, DEMO_JUMPS[1].spec.flight_gravity_mps2
+    fix = fixed["fix_applied"]
+    assert fix["mode"] == "KEEP_CONTACTS" and fix["bone"] == "root"
+    assert fix["apex_raise_m"] == pytest.approx((g - g_floaty) * t_s**2 / 8, rel=0.03)
+    assert fix["view_height_m"] > fix["apex_raise_m"] + 3.0
+    assert demo["fixes"] == {FIXED: fix}
+
+
 def test_report_has_the_plots_and_the_pictures(demo, tmp_path):
     html = open(demo["report"], encoding="utf-8").read()
+    assert f"strip_{FIXED}.png" in html and "flight fixed" in html
+    assert "Flight arc before and after the fix" in html and "Spin in flight" in html
+    assert "with nothing to push against" in html              # the floaty clip's spin finding
     # Per clip: load, body height with the flight parabola, chain tip swing.
     assert html.count("<svg") >= 3 * len(DEMO_JUMPS)
     for jump in DEMO_JUMPS:
@@ -94,13 +127,14 @@ def test_report_has_the_plots_and_the_pictures(demo, tmp_path):
 
 def test_contact_sheet_is_a_png_of_the_layout_size_with_different_frames(demo):
     tw, th = SMALL["tile"]
-    lay = SheetLayout(len(DEMO_JUMPS), len(SHEET_EVENTS), tw, th, SMALL["scale"])
+    assert tuple(demo["clips"]) == ROWS            # one row per clip, the fixed copy after the floaty one
+    lay = SheetLayout(len(ROWS), len(SHEET_EVENTS), tw, th, SMALL["scale"])
     w, h, rgb = read_png(demo["contact_sheet"])
     assert (w, h) == lay.size == tuple(demo["sheet_size"])
     tiles = np.array([[rgb[y:y + th, x:x + tw].astype(float)
                        for x, y in (lay.tile_origin(r, c) for c in range(len(SHEET_EVENTS)))]
-                      for r in range(len(DEMO_JUMPS))])
-    for r in range(len(DEMO_JUMPS)):
+                      for r in range(len(ROWS))])
+    for r in range(len(ROWS)):
         for c in range(len(SHEET_EVENTS)):
             assert tiles[r, c].std() > 10, "a tile is blank"
             for c2 in range(c + 1, len(SHEET_EVENTS)):
@@ -109,8 +143,15 @@ def test_contact_sheet_is_a_png_of_the_layout_size_with_different_frames(demo):
     apex, whip = SHEET_EVENTS.index("apex"), SHEET_EVENTS.index("whip")
     assert np.abs(tiles[0, apex] - tiles[1, apex]).mean() > 1.0
     assert np.abs(tiles[0, whip] - tiles[1, whip]).mean() > 0.2
+    # The fixed floaty jump: a different apex picture, and the whole body in view at every event
+    # (the corrected arc is about 1.3 m higher: the camera is opened up to it). The top rows of a
+    # tile are sky only: no part of the character is cut off at the top.
+    assert np.abs(tiles[2, apex] - tiles[1, apex]).mean() > 1.0
+    for c in range(len(SHEET_EVENTS)):
+        top = tiles[2, c][:2]
+        assert np.abs(top - top[0, 0]).max() < 8, f"the fixed clip is cut off at {SHEET_EVENTS[c]}"
     # Per-clip strips are one row of the same tiles.
-    for name in (GOOD, FLOATY):
+    for name in ROWS:
         sw, sh, _ = read_png(demo["strips"][name])
         assert (sw, sh) == SheetLayout(1, len(SHEET_EVENTS), tw, th, SMALL["scale"]).size
 
@@ -125,6 +166,7 @@ def test_the_blend_reopens_with_both_scenes_and_the_bake_layer(demo):
         assert track is not None and len(track.strips) == 1
         assert [c.name for c in rig.overlap_assist.chains] == [c[0] for c in CHAINS]
         assert rig.overlap_assist.body.body_source == 'AUTO'   # the default: CoM when matched
+        assert FIX_TRACK_NAME not in [t.name for t in rig.animation_data.nla_tracks]
         assert {"takeoff", "apex", "touchdown"} <= {m.name for m in scene.timeline_markers}
         assert scene.camera is not None and scene.render.engine == 'BLENDER_WORKBENCH'
         assert sum(1 for o in scene.objects if o.type == 'MESH' and o.parent is rig) > 20
@@ -146,6 +188,15 @@ def test_the_blend_reopens_with_both_scenes_and_the_bake_layer(demo):
         assert max(np.abs(q - turns["settle"]).max() for q in turns.values()) > 0.02
 
 
+def test_the_blend_has_the_fixed_copy_with_its_fix_under_the_bake(demo):
+    bpy.ops.wm.open_mainfile(filepath=str(demo["blend"]), load_ui=False, use_scripts=False)
+    scene = bpy.data.scenes[FIXED]
+    rig = next(o for o in scene.objects if o.type == 'ARMATURE')
+    assert [t.name for t in rig.animation_data.nla_tracks] == [FIX_TRACK_NAME, "Overlap Bake"]
+    assert rig.animation_data.action is not None and rig.animation_data.action_blend_type == 'COMBINE'
+    assert scene.camera.data.ortho_scale == pytest.approx(demo["fixes"][FIXED]["view_height_m"], abs=1e-4)
+
+
 def test_the_demo_command_prints_the_findings_and_writes_the_outputs(tmp_path, capfd):
     from overlap_assist import cli
     assert cli.main(["demo", "--out", str(tmp_path)]) == 0
@@ -160,4 +211,5 @@ def test_the_demo_command_prints_the_findings_and_writes_the_outputs(tmp_path, c
         assert f"wrote {tmp_path / name}" in out and (tmp_path / name).stat().st_size > 0
     w, h, _ = read_png(tmp_path / "contact_sheet.png")
     tw, th = FULL["tile"]
-    assert (w, h) == SheetLayout(len(DEMO_JUMPS), len(SHEET_EVENTS), tw, th, FULL["scale"]).size
+    assert (w, h) == SheetLayout(len(ROWS), len(SHEET_EVENTS), tw, th, FULL["scale"]).size
+    assert any(line.startswith(f"{FIXED}:") and "ballistic" in line for line in lines)

@@ -135,6 +135,75 @@ def test_one_undo_step_takes_the_fix_back(jumper):
     assert obj.animation_data.action is not None and sorted(a.name for a in bpy.data.actions) == names
 
 
+def _root_location(obj, frames):
+    scene = bpy.context.scene
+    out = []
+    for f in frames:
+        scene.frame_set(int(f))
+        out.append(np.array(obj.pose.bones["root"].location))
+    return np.array(out)
+
+
+def test_influence_slider_is_the_strips_own_value_saved_with_the_file_and_undone(jumper, tmp_path):
+    obj, scene = jumper, bpy.context.scene
+    frames = np.arange(scene.frame_start, scene.frame_end + 1, 3)
+    plain = _root_location(obj, frames)
+    assert run(obj, "fix_flight") == {'FINISHED'}
+    body = obj.overlap_assist.body
+    assert body.fix_influence == pytest.approx(1.0)
+    full = _root_location(obj, frames) - plain
+    assert np.max(np.abs(full)) > 0.05
+    # The slider writes the strip's influence (Blender's NLA mixes the COMBINE layer's location
+    # by it: half the influence, half the shift, by Blender's own evaluation).
+    body.fix_influence = 0.5
+    strip = obj.animation_data.nla_tracks[FIX].strips[0]
+    assert strip.use_animated_influence and strip.fcurves.find("influence").evaluate(strip.frame_start) == 0.5
+    np.testing.assert_allclose(_root_location(obj, frames) - plain, 0.5 * full, atol=1e-5)
+    body.fix_influence = 7.0                           # clamped to the slider's range
+    assert flight_fix_layer.fix_influence(obj) == pytest.approx(1.0)
+    body.fix_influence = 0.5
+    # Saved with the file: the value is on the strip, nothing to re-apply on load.
+    path = tmp_path / "influence.blend"
+    bpy.ops.wm.save_as_mainfile(filepath=str(path))
+    bpy.ops.wm.open_mainfile(filepath=str(path), load_ui=False, use_scripts=False)
+    obj = bpy.data.objects["Jumper"]
+    assert obj.overlap_assist.body.fix_influence == pytest.approx(0.5)
+    np.testing.assert_allclose(_root_location(obj, frames) - plain, 0.5 * full, atol=1e-5)
+    # Undo takes an influence edit back (the strip's key is file data like any other).
+    bpy.ops.ed.undo_push(message="at half")
+    obj.overlap_assist.body.fix_influence = 0.2
+    bpy.ops.ed.undo_push(message="at a fifth")
+    if not bpy.ops.ed.undo.poll():
+        pytest.skip("bpy.ops.ed.undo() is unavailable here (no undo step recorded)")
+    bpy.ops.ed.undo()
+    obj = bpy.data.objects["Jumper"]
+    assert obj.overlap_assist.body.fix_influence == pytest.approx(0.5)
+    # Without a layer the slider has nothing to move.
+    assert run(obj, "remove_flight_fix") == {'FINISHED'}
+    obj.overlap_assist.body.fix_influence = 0.3
+    assert flight_fix_layer.fix_influence(obj) is None and not obj.animation_data.nla_tracks
+
+
+def test_fix_choices_are_stored_on_the_armature_and_survive_save_and_reload(jumper, tmp_path):
+    obj = jumper
+    body = obj.overlap_assist.body
+    assert (body.fix_mode, body.fix_blend_frames) == ('KEEP_CONTACTS', pytest.approx(3.0))
+    body.fix_mode, body.fix_blend_frames = 'KEEP_APEX', 5.0
+    assert run(obj, "fix_flight") == {'FINISHED'}             # no arguments: the stored choices
+    info = flight_fix_layer.fix_info(obj)
+    assert info["mode"] == 'KEEP_APEX' and info["blend_frames"] == pytest.approx(5.0)
+    path = tmp_path / "choices.blend"
+    bpy.ops.wm.save_as_mainfile(filepath=str(path))
+    bpy.ops.wm.open_mainfile(filepath=str(path), load_ui=False, use_scripts=False)
+    obj = bpy.data.objects["Jumper"]
+    body = obj.overlap_assist.body
+    assert (body.fix_mode, body.fix_blend_frames) == ('KEEP_APEX', pytest.approx(5.0))
+    # Choices given to the operator (a script, the redo panel) win and become the stored ones.
+    assert run(obj, "fix_flight", mode='KEEP_CONTACTS', blend_frames=2.0) == {'FINISHED'}
+    assert flight_fix_layer.fix_info(obj)["mode"] == 'KEEP_CONTACTS'
+    assert (body.fix_mode, body.fix_blend_frames) == ('KEEP_CONTACTS', pytest.approx(2.0))
+
+
 def test_chains_and_the_bake_see_the_corrected_body_and_layers_unstack_in_any_order(jumper):
     obj, scene = jumper, bpy.context.scene
     action = obj.animation_data.action
@@ -168,6 +237,71 @@ def test_chains_and_the_bake_see_the_corrected_body_and_layers_unstack_in_any_or
     assert run(obj, "remove_bake") == {'FINISHED'}
     assert ad.action == action and len(ad.nla_tracks) == 0 and action_digest(action) == digest
     assert ad.action_blend_type == 'REPLACE'
+
+
+def _legacy_bake(obj):
+    """The earlier bake arrangement, built by hand: the user's action pushed into an "Overlap Base"
+    strip (no active action) and the bake's COMBINE track above it, its record saying so."""
+    from overlap_assist.blender.bake_layer import BASE_TRACK_NAME, INFO_KEY, find_bake
+    select_bones(obj, ["tail.001", "tail.002"])
+    op(obj, "add_chains", preset="light_tail")
+    assert run(obj, "bake_chains") == {'FINISHED'}
+    _track, _strip, act = find_bake(obj)
+    baked = act.copy()                      # the bake's keys, kept while the current layer goes
+    statics = act[INFO_KEY].to_dict().get("static_rotations", {})
+    assert run(obj, "remove_bake") == {'FINISHED'}
+    ad = obj.animation_data
+    user, slot = ad.action, ad.action_slot
+    info = {"created_animdata": 0, "use_nla": int(ad.use_nla), "pushed": 1, "blend_type": ad.action_blend_type,
+            "influence": ad.action_influence, "extrapolation": ad.action_extrapolation,
+            "slot_identifier": slot.identifier, "static_rotations": statics}
+    scene = bpy.context.scene
+    base = ad.nla_tracks.new()
+    base.name = BASE_TRACK_NAME
+    strip = base.strips.new(user.name, scene.frame_start, user)
+    strip.action_slot = slot
+    strip.blend_type, strip.extrapolation = info["blend_type"], info["extrapolation"]
+    ad.action = None
+    track = ad.nla_tracks.new(prev=base)
+    track.name = BAKE_TRACK_NAME
+    strip = track.strips.new(BAKE_TRACK_NAME, scene.frame_start, baked)
+    strip.action_slot = baked.slots[0]
+    strip.blend_type, strip.extrapolation = 'COMBINE', 'NOTHING'
+    baked.name = f"{obj.name} {BAKE_TRACK_NAME}"
+    baked[INFO_KEY] = info
+    return user, slot
+
+
+@pytest.mark.parametrize("fix_goes_first", [True, False], ids=["fix-then-bake", "bake-then-fix"])
+def test_legacy_base_bake_and_a_fix_come_off_in_either_order_exactly(jumper, fix_goes_first):
+    obj, scene = jumper, bpy.context.scene
+    frames = range(scene.frame_start, scene.frame_end + 1, 4)
+    original = pose_snapshot(obj, frames)
+    digest = action_digest(obj.animation_data.action)
+    user, slot = _legacy_bake(obj)
+    ad = obj.animation_data
+    assert ad.action is None and [t.name for t in ad.nla_tracks] == ["Overlap Base", BAKE_TRACK_NAME]
+    legacy = pose_snapshot(obj, frames)
+    assert np.abs(legacy - original).max() > 1e-3          # the baked chain moves
+    assert run(obj, "fix_flight") == {'FINISHED'}
+    # The fix goes between the base strip and the bake, and plays: the root moves.
+    assert [t.name for t in ad.nla_tracks] == ["Overlap Base", FIX, BAKE_TRACK_NAME] and ad.action is None
+    assert np.abs(pose_snapshot(obj, frames) - legacy).max() > 0.05
+    if fix_goes_first:
+        assert run(obj, "remove_flight_fix") == {'FINISHED'}
+        assert [t.name for t in ad.nla_tracks] == ["Overlap Base", BAKE_TRACK_NAME] and ad.action is None
+        np.testing.assert_array_equal(pose_snapshot(obj, frames), legacy)
+        assert run(obj, "remove_bake") == {'FINISHED'}
+    else:
+        assert run(obj, "remove_bake") == {'FINISHED'}
+        # The user's action is active again, the fix still plays over it (COMBINE while a layer exists).
+        assert [t.name for t in ad.nla_tracks] == [FIX] and ad.action == user and ad.action_blend_type == 'COMBINE'
+        assert np.abs(pose_snapshot(obj, frames) - original).max() > 0.05
+        assert run(obj, "remove_flight_fix") == {'FINISHED'}
+    assert ad.action == user and ad.action_slot == slot and len(ad.nla_tracks) == 0
+    assert ad.action_blend_type == 'REPLACE' and action_digest(user) == digest
+    assert not any(FIX in a.name or BAKE_TRACK_NAME in a.name for a in bpy.data.actions)
+    np.testing.assert_array_equal(pose_snapshot(obj, frames), original)
 
 
 def test_keys_set_after_the_fix_land_in_the_users_action_and_removal_keeps_them(jumper):
