@@ -24,9 +24,9 @@ violent motion (measured before this bound: +78 % over 2 s at 48 fps for 3 links
 after a violent start, +8 % at 12 fps with one sub-step, +4.2 % undamped, +3.8 % for a link
 sliding along its cone). Where a frame ends above the allowance, the excess is taken out of the
 kinetic energy (the rates are scaled, never re-aimed). The allowance is measured from the lowest
-energy the chain has had (plus the work since), with a band of ``ENERGY_BAND`` of the energy
-above the load's floor, so the bounded oscillation of the step's energy around the exact value
-(undamped double pendulum: 4e-4) is left alone and only a systematic gain is cut. Frames in which
+energy the chain has had (plus the work since), with a band of ``ENERGY_BAND`` of the allowed
+energy above the load's floor, so the bounded oscillation of the step's energy around the exact value
+(undamped double pendulum: 4e-4; a tumbling chain in free fall: a few 1e-3) is left alone and only a systematic gain is cut. Frames in which
 a collider touched the chain are not bounded (a moving collider does work the bookkeeping does
 not know; contact impulses themselves never add kinetic energy).
 """
@@ -35,10 +35,13 @@ from __future__ import annotations
 
 import numpy as np
 
-ENERGY_BAND = 2e-3
-"""Slack of the energy bound, as a fraction of the energy above the load's floor (the lowest
-energy the load allows, ``-sum_j b_j |f|``): a chain's energy may rise this far above its lowest
-value plus the animation's work before the rates are scaled."""
+ENERGY_BAND = 5e-3
+"""Slack of the energy bound, as a fraction of the allowed energy above the load's floor (the
+lowest energy the load allows, ``-sum_j b_j |f|``): a chain's energy may rise this far above its
+lowest value plus the animation's work before the rates are scaled. Measured: a bent, tapered
+chain with a tip mass tumbling in free fall (3 s, 120 fps) keeps its kinetic energy within 0.12 %
+unbounded, 0.20 % with this band, 0.88 % with 2e-3 (the step's energy oscillates, and a tight
+band turns each upswing into a loss)."""
 
 
 def chain_energy(mech: dict, pivot_vel, felt, d, u, target):
@@ -139,7 +142,7 @@ class EnergyBound:
         there (a body that holds still); what cannot be taken out is accepted."""
         energy, kinetic, terms = self._terms(d, u, k + 1)
         allowed = self.low + self.half_dt * (self.power + self._power(terms, k, self.target_rate_end[k]))
-        band = ENERGY_BAND * np.maximum(energy - self.floor[k + 1], 0.0)
+        band = ENERGY_BAND * np.maximum(allowed - self.floor[k + 1], 0.0)
         excess = energy - allowed - band
         if touched is not None:
             excess = np.where(touched, 0.0, excess)
@@ -152,8 +155,7 @@ class EnergyBound:
                 fits = np.all((d_start * self.targets[k + 1]).sum(axis=-1) >= self.cos_lim - 1e-9, axis=1)
                 rest = np.zeros_like(u)
                 energy_rest, _, _ = self._terms(d_start, rest, k + 1)
-                keep = (excess > kinetic) & fits & (energy_rest < energy) & (
-                    energy_rest <= allowed + ENERGY_BAND * np.maximum(energy_rest - self.floor[k + 1], 0.0))
+                keep = (excess > kinetic) & fits & (energy_rest < energy) & (energy_rest <= allowed + band)
                 if keep.any():
                     d = np.where(keep[:, None, None], d_start, d)
                     u = np.where(keep[:, None, None], rest, u)
