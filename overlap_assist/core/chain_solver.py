@@ -71,7 +71,9 @@ which some link would turn by more than ``ROTATION_STEP_MAX`` is split into shor
 highest mode or damping is too fast for the frame rate to be followed accurately. Contacts and
 bend stops change the rates by impulses through the mass matrix (the least change that stops the
 motion into the surface: it never adds kinetic energy), and rates re-aimed along moved links are
-scaled back to the kinetic energy they had. Arithmetic is fixed-order numpy, so
+scaled back to the kinetic energy they had. After every frame the chain's energy is held to the
+budget the equations of motion give it (``core.chain_energy``: what it had plus the animation's
+work; while the body holds still it can only fall), the excess taken out of the motion. Arithmetic is fixed-order numpy, so
 identical input gives bit-identical output.
 
 Pre-roll: the chain starts at rest in the static equilibrium of frame 0 (joint springs against
