@@ -120,6 +120,8 @@ class EnergyBound:
         # t' at a frame's start and end: the targets turn at the frame's constant spin.
         self.target_rate_start = _cross(spin, targets[:-1])  # (T-1, C, N, 3)
         self.target_rate_end = _cross(spin, targets[1:])
+        # Frames in which the animation may work on some chain (targets turn or the load changes).
+        self.animated = (np.any(spin != 0.0, axis=(1, 2, 3)) | np.any(self.felt_rate != 0.0, axis=(1, 2))).tolist()
         self.budget = self.power = None
 
     def _terms(self, d, u, k):
@@ -141,17 +143,29 @@ class EnergyBound:
                 - (self.felt_rate[frame] * bd).sum(axis=-1))
 
     def start(self, d, u):
-        self.budget, _, terms = self._terms(d, u, 0)
-        self.power = self._power(terms, 0, self.target_rate_start[0]) if self.spin.shape[0] else None
+        self._begin(d, u, 0)
 
-    def end_frame(self, d, u, k, touched, d_start):
+    def _begin(self, d, u, k):
+        self.budget, _, terms = self._terms(d, u, k)
+        self.power = self._power(terms, k, self.target_rate_start[k]) if k < self.spin.shape[0] else None
+
+    def end_frame(self, d, u, k, touched, d_start, u_start, smooth):
         """After frame k -> k + 1; returns the directions and rates. ``touched`` (C,) bool or None:
-        a collider touched the chain in the frame. ``d_start``: the directions at frame k.
+        a collider touched the chain in the frame. ``d_start``, ``u_start``: the state at frame k.
+        ``smooth``: the frame took only plain steps (no split step, no bend stop, no contact).
 
-        The excess is taken out of the kinetic energy. Where it is more than that (a bend stop
-        lifted a slowly sliding chain against its load), the chain keeps its directions of frame
-        k, at rest, if they are inside the bend cones of frame k + 1 and within the allowance
-        there (a body that holds still); what cannot be taken out is accepted."""
+        A smooth frame in which the animation works is not bounded (the step is accurate there,
+        and the next budget would start from the frame's end anyway): that keeps the bound's cost
+        off ordinary animated shots. The excess is taken out of the kinetic energy. Where it is
+        more than that (a bend stop lifted a slowly sliding chain against its load), the chain
+        keeps its directions of frame k, at rest, if they are inside the bend cones of frame
+        k + 1 and within the allowance there (a body that holds still); what cannot be taken out
+        is accepted."""
+        if smooth and self.animated[k]:
+            self.budget = None
+            return d, u
+        if self.budget is None:
+            self._begin(d_start, u_start, k)
         energy, kinetic, terms = self._terms(d, u, k + 1)
         power_end = self._power(terms, k, self.target_rate_end[k])
         allowed = self.budget + self.half_dt * (self.power + power_end)

@@ -273,6 +273,7 @@ def simulate_chains(
                 sk = s_inv[i]
                 uu_max = max(uu_max, TENSION_IMPLICIT_MIN / (h * h))
             touched_before = contacts.sum(axis=1) if coll is not None else None
+            d_frame, u_frame, smooth = d, u, True
             for j in range(n_sub):
                 uu = npdot(u * u, ones)
                 top = float(np.max(uu))
@@ -282,7 +283,7 @@ def simulate_chains(
                     # Links spinning by more than ROTATION_STEP_MAX per sub-step, or faster than
                     # the frame's bound (a violent start or snap): shorter steps, with the current
                     # pull in their matrix.
-                    done, pieces = 0.0, 0
+                    done, pieces, smooth = 0.0, 0, False
                     while done < 1.0 - 1e-12:
                         uu = npdot(u * u, ones)
                         fast = h * float(np.sqrt(np.max(uu)))
@@ -302,6 +303,7 @@ def simulate_chains(
                     before = d
                     d, u = limit_bend(d, u, t_end[i, j], cos_lim, sin_lim, inv_inertia)
                     if d is not before:
+                        smooth = False
                         a_last = np.zeros_like(d)  # the stop broke the smooth motion the prediction needs
                         # Moving links back onto their cones changes the springs' and the load's
                         # energy; what that adds is taken from the motion (a stop must not pump
@@ -323,8 +325,9 @@ def simulate_chains(
             d = d / np.sqrt(dot(d, d))[..., None]
             u = u - dot(u, d)[..., None] * d
             # A frame may not add energy the animation did not give (core.chain_energy).
-            d, u = energy_bound.end_frame(d, u, k, None if coll is None else contacts.sum(axis=1) > touched_before,
-                                          out[k])
+            touched = None if coll is None else contacts.sum(axis=1) > touched_before
+            d, u = energy_bound.end_frame(d, u, k, touched, d_frame, u_frame,
+                                          smooth and (touched is None or not touched.any()))
             out[k + 1] = d
     return package(prep, out, u, contacts)
 
