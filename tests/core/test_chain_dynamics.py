@@ -285,7 +285,7 @@ def test_free_fall_keeps_angular_momentum_and_energy_of_a_bent_spinning_chain():
     # A bent chain (4 links, tapered, with a tip mass) spinning on a ballistic anchor: no force
     # but the anchor's acts on it, so angular momentum about the anchor and kinetic energy are
     # conserved (Goldstein ch. 1) -- within 1 % after 3 s at 120 fps (rates of ~3 rad/s per link, a
-    # violent tumble; measured 0.26 % / 0.12 % at 120 fps, 2.0 % / 2.2 % at 60 fps).
+    # violent tumble; measured 0.26 % / 0.12 % at 120 fps, 1.5 % / 0.8 % at 60 fps).
     fps, seconds = 120, 3.0
     n = int(seconds * fps) + 1
     t = np.arange(n) / fps
