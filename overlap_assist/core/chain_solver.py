@@ -73,8 +73,8 @@ bend stops change the rates by impulses through the mass matrix (the least chang
 motion into the surface: it never adds kinetic energy), and rates re-aimed along moved links are
 scaled back to the kinetic energy they had. After every frame the chain's energy is held to the
 budget the equations of motion give it (``core.chain_energy``: what it had plus the animation's
-work; while the body holds still it can only fall), the excess taken out of the motion. Arithmetic is fixed-order numpy, so
-identical input gives bit-identical output.
+work; while the body holds still it can only fall), the excess taken out of the motion.
+Arithmetic is fixed-order numpy, so identical input gives bit-identical output.
 
 Pre-roll: the chain starts at rest in the static equilibrium of frame 0 (joint springs against
 the frame's felt acceleration, the whole chain at once), moving with the animated motion.
