@@ -71,8 +71,10 @@ which some link would turn by more than ``ROTATION_STEP_MAX`` is split into shor
 highest mode or damping is too fast for the frame rate to be followed accurately. Contacts and
 bend stops change the rates by impulses through the mass matrix (the least change that stops the
 motion into the surface: it never adds kinetic energy), and rates re-aimed along moved links are
-scaled back to the kinetic energy they had. Arithmetic is fixed-order numpy, so
-identical input gives bit-identical output.
+scaled back to the kinetic energy they had. After every frame the chain's energy is held to the
+budget the equations of motion give it (``core.chain_energy``: what it had plus the animation's
+work; while the body holds still it can only fall), the excess taken out of the motion.
+Arithmetic is fixed-order numpy, so identical input gives bit-identical output.
 
 Pre-roll: the chain starts at rest in the static equilibrium of frame 0 (joint springs against
 the frame's felt acceleration, the whole chain at once), moving with the animated motion.
@@ -83,6 +85,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from .chain_energy import EnergyBound, chain_energy, no_energy_gain, potential, take_energy
 from .chain_setup import initial_state, package, prepare
 from .chain_types import ChainInput, ChainMotion, ChainSettings, ChainState, Colliders
 from .colliders import dot, project_out
@@ -191,6 +194,8 @@ def simulate_chains(
         d, u, _ = _collide(prep, coll, prep["pivots"][0], 0, 0.0, d, u)
     out = np.empty((n_frames,) + shape + (3,))
     out[0] = d
+    energy_bound = EnergyBound(inertia, spring, relative, load, felt, spin, targets, dt_s, cos_lim)
+    energy_bound.start(d, u)
     a_last = np.zeros_like(d)  # the last step's tangential accelerations
     contacts = np.zeros(shape, dtype=np.int64)
     s_mid = ((np.arange(n_sub) + 0.5) / n_sub)[None, :, None, None, None]
@@ -267,6 +272,8 @@ def simulate_chains(
             else:
                 sk = s_inv[i]
                 uu_max = max(uu_max, TENSION_IMPLICIT_MIN / (h * h))
+            touched_before = contacts.sum(axis=1) if coll is not None else None
+            d_frame, u_frame, smooth = d, u, True
             for j in range(n_sub):
                 uu = npdot(u * u, ones)
                 top = float(np.max(uu))
@@ -276,7 +283,7 @@ def simulate_chains(
                     # Links spinning by more than ROTATION_STEP_MAX per sub-step, or faster than
                     # the frame's bound (a violent start or snap): shorter steps, with the current
                     # pull in their matrix.
-                    done, pieces = 0.0, 0
+                    done, pieces, smooth = 0.0, 0, False
                     while done < 1.0 - 1e-12:
                         uu = npdot(u * u, ones)
                         fast = h * float(np.sqrt(np.max(uu)))
@@ -296,14 +303,15 @@ def simulate_chains(
                     before = d
                     d, u = limit_bend(d, u, t_end[i, j], cos_lim, sin_lim, inv_inertia)
                     if d is not before:
+                        smooth = False
                         a_last = np.zeros_like(d)  # the stop broke the smooth motion the prediction needs
                         # Moving links back onto their cones changes the springs' and the load's
                         # energy; what that adds is taken from the motion (a stop must not pump
                         # energy into a chain sliding along its cone).
                         f_ref = load3 * f_mid[i, j][:, None, :]
-                        gain = (_potential(spring, t_end[i, j], f_ref, d)
-                                - _potential(spring, t_end[i, j], f_ref, before))
-                        u = _take_energy(inertia, u, gain)
+                        gain = (potential(spring, t_end[i, j], f_ref, d)
+                                - potential(spring, t_end[i, j], f_ref, before))
+                        u = take_energy(inertia, u, gain)
                 if coll is not None and broad.maybe_inside(d, k, float(s_end[j])):
                     pivot = prep["pivots"][k] + s_end[j] * (prep["pivots"][k + 1] - prep["pivots"][k])
                     d, _, touched, normals = _collide(prep, coll, pivot, k, float(s_end[j]), d, u, True)
@@ -312,10 +320,14 @@ def simulate_chains(
                         a_last = np.zeros_like(d)
                         u = _contact_impulse(inv_inertia, lengths, d, u - dot(u, d)[..., None] * d, normals)
                 if (limit or coll is not None) and d is not d_before:
-                    u = _no_energy_gain(inertia, u_before, u)
+                    u = no_energy_gain(inertia, u_before, u)
             # The turn keeps |d| = 1 and d . u = 0 exactly but for rounding; wash that out.
             d = d / np.sqrt(dot(d, d))[..., None]
             u = u - dot(u, d)[..., None] * d
+            # A frame may not add energy the animation did not give (core.chain_energy).
+            touched = None if coll is None else contacts.sum(axis=1) > touched_before
+            d, u = energy_bound.end_frame(d, u, k, touched, d_frame, u_frame,
+                                          smooth and (touched is None or not touched.any()))
             out[k + 1] = d
     return package(prep, out, u, contacts)
 
@@ -334,51 +346,6 @@ def _fast_solve():
     except (ImportError, AttributeError, TypeError, ValueError):
         pass
     return np.linalg.solve
-
-
-def chain_energy(mech: dict, pivot_vel, felt, d, u, target):
-    """Energy of one chain (relative units of its mechanics): kinetic + load + joint springs.
-
-    For a still anchor (``pivot_vel = 0``) and a steady felt acceleration ``felt`` this is the
-    conserved energy of the undamped model. Arrays: d, u, target (n, 3); felt, pivot_vel (3,).
-    """
-    m, b = mech["inertia"], mech["load"]
-    vel = u
-    kinetic = 0.5 * float(np.sum(m * (vel @ vel.T)))
-    kinetic += float(np.asarray(pivot_vel) @ (b @ u)) + 0.5 * (1.0 + mech["tip_mass"]) * float(
-        np.asarray(pivot_vel) @ np.asarray(pivot_vel))
-    dev = d - target
-    springs = 0.5 * float(np.sum(mech["spring"] * (dev @ dev.T)))
-    return kinetic - float(b @ (d @ np.asarray(felt))) + springs
-
-
-def _potential(spring, target, load_f, d):
-    """Joint springs' and load's energy per chain: 1/2 (d - t)^T K_s (d - t) - sum_j b_j f . d_j."""
-    dev = d - target
-    return 0.5 * np.einsum("cni,cni->c", dev, spring @ dev) - np.einsum("cni,cni->c", load_f, d)
-
-
-def _take_energy(inertia, u, gain):
-    """Rates scaled down per chain so their kinetic energy drops by ``gain`` (where positive)."""
-    kinetic = 0.5 * np.einsum("cni,cnm,cmi->c", u, inertia, u)
-    over = (gain > 0.0) & (kinetic > 0.0)
-    if not over.any():
-        return u
-    scale = np.sqrt(np.where(over, np.maximum(kinetic - gain, 0.0) / np.where(over, kinetic, 1.0), 1.0))
-    return u * scale[:, None, None]
-
-
-def _no_energy_gain(inertia, before, after):
-    """Rates after contacts and bend stops, scaled down per chain where they would carry more
-    kinetic energy (``1/2 u^T M u``) than before: moving a link onto a surface or a cone re-aims
-    its rate along its new direction, and through the coupling that must not speed the chain up."""
-    e0 = np.einsum("cni,cnm,cmi->c", before, inertia, before)
-    e1 = np.einsum("cni,cnm,cmi->c", after, inertia, after)
-    over = e1 > e0
-    if not over.any():
-        return after
-    scale = np.sqrt(np.where(over, e0 / np.where(over, e1, 1.0), 1.0))
-    return after * scale[:, None, None]
 
 
 def _contact_impulse(inv_inertia, lengths, d, u, normals):

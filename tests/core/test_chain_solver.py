@@ -404,6 +404,31 @@ def test_moving_sphere_sweeps_through_a_hanging_chain():
 # Bookkeeping
 
 
+def test_energy_bound_leaves_a_smooth_animated_shot_alone(monkeypatch):
+    # core.chain_energy: frames in which the animation works and the step is plain are not
+    # bounded, so an ordinary shot (a swaying, bobbing anchor, default settings) moves bit for bit
+    # as without the bound (the energy properties in test_chain_properties.py check it where it acts).
+    from overlap_assist.core import chain_energy
+
+    n = 60
+    t = np.arange(n) / 24.0
+    pivot = np.stack([0.3 * t, 0.05 * np.sin(2.0 * t), 0.03 * np.sin(5.0 * t)], -1)
+    sway = 0.3 * np.sin(2.1 * t)
+    dirs = np.stack([np.sin(sway), np.zeros(n), -np.cos(sway)], -1)[:, None].repeat(6, axis=1)
+    chain = ChainInput(pivot, dirs, [0.06] * 6)
+    bounded = simulate_chains([chain], [ChainSettings()], GRAVITY, 1 / 24).dirs[0]
+    calls = []
+
+    def unbounded(self, d, u, k, touched, d_start, u_start, smooth):
+        calls.append(k)
+        return d, u
+
+    monkeypatch.setattr(chain_energy.EnergyBound, "end_frame", unbounded)
+    free = simulate_chains([chain], [ChainSettings()], GRAVITY, 1 / 24).dirs[0]
+    assert len(calls) == n - 1  # it was asked every frame
+    assert np.array_equal(bounded, free)
+
+
 def test_identical_input_gives_bit_identical_output():
     n = 50
     rng = np.random.default_rng(3)
