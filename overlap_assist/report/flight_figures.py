@@ -16,9 +16,18 @@ import numpy as np
 from .findings import as_float
 from .svg_plot import PlotArea, axes, esc, margin_label, polyline, spread, svg_close, svg_open, vline
 
-H_STYLES = (("left", "#1f4e79", "", "about left (forward +)"),
-            ("forward", "#a0451c", "7 4", "about forward (tip right +)"),
-            ("up", "#3e7a3a", "2 3", "about up (twist left +)"))
+H_STYLES = (("left", "#1f4e79", "", "somersault"),
+            ("forward", "#a0451c", "7 4", "cartwheel"),
+            ("up", "#3e7a3a", "2 3", "twist"))
+H_KEY = ("H per kg of body mass about the body's own axes: somersault about its left axis (forward +), "
+         "cartwheel about its forward axis (tipping right +), twist about its up axis (turning left +). "
+         "A flat line is a spin kept, as it must be in the air.")
+
+
+def _sentence(text: str) -> str:
+    """A finding as a sentence under a figure: capital first letter (the JSON keeps the phrase)."""
+    text = str(text or "")
+    return text[:1].upper() + text[1:]
 
 
 def _arr(values):
@@ -56,11 +65,12 @@ def spin_figure(clip) -> str:
         if np.isfinite(onset):
             parts.append(vline(area, onset, "event", "spin starts"))
         parts.append(svg_close())
+        parts.append(f'<p class="legend">{esc(H_KEY)}</p>')
         finding = fl.get("finding")
         text = finding if finding else (f"Spin kept: the change ({abs(as_float(fl.get('change_deg_per_s'))):.0f}°/s) "
                                         f"is within what sampling and the segment table explain "
                                         f"({as_float(fl.get('threshold_deg_per_s')):.0f}°/s).")
-        parts.append(f'<p class="{"finding fix" if finding else "finding"}">{esc(text)}</p>')
+        parts.append(f'<p class="{"finding fix" if finding else "finding"}">{esc(_sentence(text))}</p>')
     return "".join(parts) or '<p class="empty">No flight long enough to check its spin.</p>'
 
 
@@ -87,7 +97,7 @@ def fix_figure(clip) -> str:
                  '<span class="item"><span class="key solid"></span>on the ballistic arc at scene gravity '
                  '(Overlap Flight Fix layer)</span></p>')
     for fl in fix.get("flights") or []:
-        parts.append(f'<p class="finding">{esc(fl.get("advice", ""))}</p>')
+        parts.append(f'<p class="finding">{esc(_sentence(fl.get("advice", "")))}</p>')
     return "".join(parts)
 
 

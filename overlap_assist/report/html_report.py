@@ -483,7 +483,7 @@ svg .point-label{font-weight:600;fill:var(--warm)}
 .parabola{fill:none;stroke:var(--warm);stroke-width:1.6;stroke-dasharray:7 4}
 .ballistic{fill:none;stroke:#4f565d;stroke-width:1.3;stroke-dasharray:1.5 3}
 .apex-dot{fill:var(--warm);stroke:#fff;stroke-width:1}
-.chain{fill:none;stroke-width:1.7;stroke-linejoin:round}
+.chain,.spin{fill:none;stroke-width:1.7;stroke-linejoin:round}
 .legend{font-size:13px;color:var(--soft);margin:2px 0 8px}
 .legend .item{display:inline-flex;align-items:center;margin-right:14px;white-space:nowrap}
 .swatch{display:inline-block;min-width:18px;height:16px;margin-right:5px;border:1px solid #b9b4a9;
