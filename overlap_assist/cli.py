@@ -285,7 +285,7 @@ def in_scene(bpy, scene):
 
 
 def chain_frame_range(obj, scene):
-    """The frames a bake covers (``frame_ranges.chain_range``: stored bake range, preview range, scene)."""
+    """The frames a bake covers (``frame_ranges.chain_range``: the stored bake range, else the scene's)."""
     from .blender.frame_ranges import chain_range
     return chain_range(obj, scene)
 

@@ -74,7 +74,7 @@ class OverlapAssistBodySettings(bpy.types.PropertyGroup):
         name="Analyze blocked keys as splines", default=False,
         description="Evaluate stepped/constant keys as if they were Bézier, without changing the action")
     use_frame_range: BoolProperty(name="Custom range", default=False,
-                                  description="Analyze a chosen range instead of the scene's playback range (its preview range when that is on)")
+                                  description="Analyze a chosen range instead of the scene's frame range")
     frame_start: IntProperty(name="Start", default=1)
     frame_end: IntProperty(name="End", default=250)
     fix_mode: EnumProperty(name="Keep", items=FIX_MODES, default="KEEP_CONTACTS",
@@ -141,7 +141,7 @@ class OverlapAssistSettings(bpy.types.PropertyGroup):
         description="Key all rotation channels of a bone on the same frames (more keys, easier to retime by "
                     "hand); off, each channel is keyed only where it needs keys (fewest keys)")
     bake_use_range: BoolProperty(name="Custom range", default=False,
-                                 description="Bake (and preview) a chosen range instead of the scene's playback range (its preview range when that is on)")
+                                 description="Bake (and preview) a chosen range instead of the scene's frame range")
     bake_frame_start: IntProperty(name="Start", default=1)
     bake_frame_end: IntProperty(name="End", default=250)
     bake_influence: FloatProperty(name="Influence", default=1.0, min=0.0, max=1.0, subtype='FACTOR',

@@ -60,27 +60,46 @@ def test_bake_matches_the_preview_and_remove_restores(rig):
     np.testing.assert_array_equal(_poses(rig, frames), animated)
 
 
-def test_the_preview_range_is_what_previews_and_bakes(rig):
-    # Before: the preview and the bake ignored the timeline's preview range (Blender's own
-    # "use preview range"): an animator playing frames 20-60 got a solve started at frame 1.
+def test_a_flight_looped_in_the_preview_range_plays_the_float_that_bakes(rig):
+    # Frame Flight sets the timeline's preview range to one flight to loop the float. The solve
+    # still starts at the scene's first frame (a simulation needs the motion that led up to the
+    # flight, as Blender's own simulation caches keep their own range), so the loop shows the
+    # float the bake writes; a solve started at takeoff would start settled and float differently.
     from overlap_assist.blender import preview
     scene = bpy.context.scene
-    scene.use_preview_range, scene.frame_preview_start, scene.frame_preview_end = True, 20, 60
+    op(rig, "analyze_motion")
+    assert op(rig, "frame_flight", margin=2) == {'FINISHED'} and scene.use_preview_range
     try:
-        frames = [24, 35, 44, 58]
+        frames = list(range(scene.frame_preview_start, scene.frame_preview_end + 1, 3))
         op(rig, "toggle_preview")
         cache = preview.PREVIEW.caches[rig.name]
+        assert (cache.sampled.frames[0], cache.sampled.frames[-1]) == (scene.frame_start, scene.frame_end)
         previewed = _poses(rig, frames)
-        assert (cache.sampled.frames[0], cache.sampled.frames[-1]) == (20, 60)
         op(rig, "toggle_preview")
         op(rig, "bake_chains")
         baked = _poses(rig, frames)
         assert np.abs(baked - previewed).max() < 0.02   # the same solve (0.5° key tolerance)
-        keyed = [k.co[0] for fc in anim_data.all_action_fcurves(bpy.data.actions[bake_layer.bake_action_name(rig)])
-                 for k in fc.keyframe_points]
-        assert min(keyed) >= 20 and max(keyed) <= 60
     finally:
         scene.use_preview_range = False
+
+
+def test_the_preview_solves_the_bake_range(rig):
+    # Before: the preview always solved the scene's range, the bake its own stored range, so with
+    # a bake range set what played was not what baked.
+    from overlap_assist.blender import preview
+    s = rig.overlap_assist
+    s.bake_use_range, s.bake_frame_start, s.bake_frame_end = True, 20, 60
+    frames = [24, 35, 44, 58]
+    op(rig, "toggle_preview")
+    assert (preview.PREVIEW.caches[rig.name].sampled.frames[0], preview.PREVIEW.caches[rig.name].sampled.frames[-1]) \
+        == (20, 60)
+    previewed = _poses(rig, frames)
+    op(rig, "toggle_preview")
+    op(rig, "bake_chains")
+    assert np.abs(_poses(rig, frames) - previewed).max() < 0.02
+    keyed = [k.co[0] for fc in anim_data.all_action_fcurves(bpy.data.actions[bake_layer.bake_action_name(rig)])
+             for k in fc.keyframe_points]
+    assert min(keyed) >= 20 and max(keyed) <= 60
 
 
 def test_analysis_after_a_bake_keeps_the_layer(rig):

@@ -198,12 +198,13 @@ def test_stored_frame_ranges_are_honored(tmp_path):
     assert (frames[0], frames[-1]) == (3.0, 45.0)
 
 
-def test_the_preview_range_is_honored_when_no_range_is_stored(tmp_path):
-    # Blender's timeline "use preview range" is the range the animator plays: without a stored
-    # range, analyze, simulate and bake cover it (before: always the scene's full range).
+def test_the_timeline_preview_range_does_not_cut_the_analysis_or_the_solve(tmp_path):
+    # The preview range is a viewing window (Frame Flight sets it to one flight): without a stored
+    # range, analyze and simulate still cover the scene's range, so the jump keeps its takeoff
+    # and the chains the motion that led up to it.
     scene = bpy.context.scene
     tail_jumper()
-    scene.use_preview_range, scene.frame_preview_start, scene.frame_preview_end = True, 6, 44
+    scene.use_preview_range, scene.frame_preview_start, scene.frame_preview_end = True, 30, 44
     path = tmp_path / "previewed.blend"
     try:
         bpy.ops.wm.save_as_mainfile(filepath=str(path), copy=True)
@@ -211,8 +212,10 @@ def test_the_preview_range_is_honored_when_no_range_is_stored(tmp_path):
         scene.use_preview_range = False
     sim = run_cli("simulate", str(path), "--json")
     assert sim.returncode == 0, sim.stderr
-    assert (json.loads(sim.stdout)["frame_start"], json.loads(sim.stdout)["frame_end"]) == (6, 44)
+    d = json.loads(sim.stdout)
+    assert (d["frame_start"], d["frame_end"]) == (scene.frame_start, scene.frame_end)
     an = run_cli("analyze", str(path), "--json")
     assert an.returncode == 0, an.stderr
-    frames = json.loads(an.stdout)["frames"]
-    assert (frames[0], frames[-1]) == (6.0, 44.0)
+    a = json.loads(an.stdout)
+    assert (a["frames"][0], a["frames"][-1]) == (float(scene.frame_start), float(scene.frame_end))
+    assert a["flights"] and a["flights"][0]["takeoff_frame"] < 30
