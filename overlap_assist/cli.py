@@ -15,6 +15,7 @@ import sys
 
 from . import outputs
 from . import streams as streams_mod
+from .core import readout
 from .core.errors import OverlapAssistError
 
 EXIT_INPUT = 2
@@ -511,7 +512,7 @@ def cmd_bake(args, io):
             start, end = chain_frame_range(obj, scene)
             stats, sampled, motion = bake_chains(obj, scene, chains, start, end, args.tolerance_deg,
                                                  shared_frames=args.shared_key_frames)
-            obj.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
+            obj.overlap_assist.last_bake = f"{readout.count(len(chains), 'chain')}: {stats.summary()}"
         saved = save_blend_atomic(bpy, target, compress)
         if args.json:
             io.out.write(json.dumps({"armature": obj.name, "scene": scene.name, "out": saved,
@@ -522,7 +523,7 @@ def cmd_bake(args, io):
                                      "max_error_deg": stats.max_error_deg, "compressed": compress,
                                      "layer": bake_layer.BAKE_TRACK_NAME}) + "\n")
         else:
-            io.out.write(f"{obj.name} (scene {scene.name}): {len(chains)} chains, {stats.summary()}\n"
+            io.out.write(f"{obj.name} (scene {scene.name}): {readout.count(len(chains), 'chain')}, {stats.summary()}\n"
                          f"wrote {saved}\n")
     return 0
 
@@ -617,7 +618,7 @@ def cmd_process(args, io):
                     start, end = chain_frame_range(obj, scene)
                     stats, sampled, motion = bake_chains(obj, scene, chains, start, end, 0.5,
                                                          shared_frames=args.shared_key_frames)
-                    obj.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
+                    obj.overlap_assist.last_bake = f"{readout.count(len(chains), 'chain')}: {stats.summary()}"
                     keys = baked_keys_by_chain(obj, sampled, stats.n_frames)
                     summary += f"; {stats.summary()}"
                     baked = True

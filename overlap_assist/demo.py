@@ -27,6 +27,7 @@ import time
 
 import numpy as np
 
+from .core import readout
 from .core.constants import CAUTION, HORIZONTAL_EASE_MPS2
 
 TOLERANCE_DEG = 0.5
@@ -145,9 +146,9 @@ def _clip(jump, sizes, progress, fix_mode=None):
     t0 = time.perf_counter()
     chains = active_chains(rig)
     stats, sampled, motion = bake_chains(rig, scene, chains, scene.frame_start, scene.frame_end, TOLERANCE_DEG)
-    rig.overlap_assist.last_bake = f"{len(chains)} chains: {stats.summary()}"
+    rig.overlap_assist.last_bake = f"{readout.count(len(chains), 'chain')}: {stats.summary()}"
     timings["simulate_and_bake_s"] = time.perf_counter() - t0
-    progress(f"{jump.name}: {len(chains)} chains, {stats.summary()}")
+    progress(f"{jump.name}: {readout.count(len(chains), 'chain')}, {stats.summary()}")
 
     swings = [np.degrees(swing_angles(inp.target_dirs, dirs)[:, -1]) for inp, dirs in zip(sampled.inputs, motion.dirs)]
     keys = per_chain_keys(rig, stats, sampled.bone_names)

@@ -3,6 +3,7 @@ import time
 
 import bpy
 
+from ..core import readout
 from ..core.errors import OverlapAssistError
 from . import bake, bake_layer
 from .selection import armature_poll, bone_selected
@@ -172,8 +173,8 @@ class OVERLAP_ASSIST_OT_bake_chains(bpy.types.Operator):
 
     def _finished(self, obj, n_chains, stats):
         bpy.context.view_layer.update()   # the baked pose now, also for scripts (no redraw there)
-        obj.overlap_assist.last_bake = f"{n_chains} chains: {stats.summary()}"
-        self.report({'INFO'}, f"{n_chains} chains, " + stats.summary())
+        obj.overlap_assist.last_bake = f"{readout.count(n_chains, 'chain')}: {stats.summary()}"
+        self.report({'INFO'}, f"{readout.count(n_chains, 'chain')}, " + stats.summary())
         return {'FINISHED'}
 
     def invoke(self, context, event):

@@ -1,6 +1,7 @@
 """Rows of the Body Motion panel for the spin check and the flight fix (drawing only)."""
 import json
 
+from ..core import readout
 from . import flight_fix_layer, flight_jobs
 
 
@@ -19,7 +20,7 @@ def draw_flight_tools(layout, obj):
         box = layout.box()
         for fl in json.loads(raw).get("flights", []):
             if fl["finding"]:
-                box.label(text=fl["finding"], icon='ERROR')
+                box.label(text=readout.sentence(fl["finding"]), icon='ERROR')
             else:
                 box.label(text=f"Spin kept in flight {fl['takeoff_frame']:.0f}-{fl['touchdown_frame']:.0f} "
                                f"(within {fl['threshold_deg_per_s']:.0f}°/s)", icon='CHECKMARK')
@@ -30,5 +31,5 @@ def draw_flight_tools(layout, obj):
                        f"({'keep apex' if info.get('mode') == 'KEEP_APEX' else 'keep contacts'})", icon='NLA')
         box.prop(body, "fix_influence", slider=True)
         for fl in flight_jobs.fix_summary(obj).get("flights", []):
-            box.label(text=fl["advice"])
+            box.label(text=readout.sentence(fl["advice"]))
         box.operator("overlap_assist.remove_flight_fix", icon='X')

@@ -79,7 +79,7 @@ class VIEW3D_PT_overlap_assist_body(OverlapPanelMixin, bpy.types.Panel):
         for land in summary.get("landings", []):
             box.label(text=f"Landing peak {readout.load_g(land['peak_load_g'])} over {land['decel_frames']:.1f} frames")
         for w in summary.get("warnings", []):
-            box.label(text=w, icon='INFO')
+            box.label(text=readout.sentence(w), icon='INFO')
         box.label(text=CAUTION, icon='QUESTION')
 
 
@@ -107,7 +107,7 @@ class OVERLAP_ASSIST_UL_chains(bpy.types.UIList):
         problem = chain_problem(context.active_object, item)
         row = layout.row(align=True)
         row.prop(item, "name", text="", emboss=False, icon='ERROR' if problem else 'BONE_DATA')
-        row.label(text=f"{len(item.bones)} bones")
+        row.label(text=readout.count(len(item.bones), "bone"))
         row.prop(item, "mute", text="", icon='HIDE_ON' if item.mute else 'HIDE_OFF', emboss=False)
 
 
@@ -134,7 +134,7 @@ def draw_chain_settings(layout, chain, fps):
                        f"Settle {response.settle_frames_of(f_hz, zeta, fps):.1f} frames")
             col.label(text=f"{derived} · {f_hz:.2f} Hz, damping {zeta:.2f}")
         except Exception as exc:  # noqa: BLE001 - drawing must not fail
-            col.label(text=str(exc), icon='ERROR')
+            col.label(text=readout.sentence(exc), icon='ERROR')
     else:
         col.prop(chain, "frequency_hz")
         col.prop(chain, "damping_ratio")
@@ -171,7 +171,7 @@ class VIEW3D_PT_overlap_assist_chains(OverlapPanelMixin, bpy.types.Panel):
             layout.label(text=f"Chain {chain.name} {problem}", icon='ERROR')
         else:
             for note in chain_notes(obj, chain):
-                layout.label(text=note, icon='CONSTRAINT_BONE')
+                layout.label(text=readout.sentence(note), icon='CONSTRAINT_BONE')
         layout.label(text=" → ".join(chain.bone_names()) or "(no bones)")
         row = layout.row(align=True)
         row.operator_menu_enum("overlap_assist.apply_preset", "preset", text=chain.preset or "Preset")

@@ -38,3 +38,15 @@ def load_g(x) -> str:
 def frame(x) -> str:
     """'26.9': an event frame."""
     return fixed(x, FRAME_DIGITS)
+
+
+def count(n: int, noun: str) -> str:
+    """``n`` and the noun, singular for one ("1 chain", "2 chains"; regular plurals only)."""
+    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
+
+
+def sentence(text) -> str:
+    """A phrase shown on its own line (panel, report) as a sentence: capital first letter.
+    The JSON and the command line keep the phrase as made, for use after a colon."""
+    text = str(text or "")
+    return text[:1].upper() + text[1:]

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..core import readout
 from .findings import as_float
 from .svg_plot import PlotArea, axes, esc, margin_label, polyline, spread, svg_close, svg_open, vline
 
@@ -22,12 +23,6 @@ H_STYLES = (("left", "#1f4e79", "", "somersault"),
 H_KEY = ("H per kg of body mass about the body's own axes: somersault about its left axis (forward +), "
          "cartwheel about its forward axis (tipping right +), twist about its up axis (turning left +). "
          "A flat line is a spin kept, as it must be in the air.")
-
-
-def _sentence(text: str) -> str:
-    """A finding as a sentence under a figure: capital first letter (the JSON keeps the phrase)."""
-    text = str(text or "")
-    return text[:1].upper() + text[1:]
 
 
 def _arr(values):
@@ -70,7 +65,7 @@ def spin_figure(clip) -> str:
         text = finding if finding else (f"Spin kept: the change ({abs(as_float(fl.get('change_deg_per_s'))):.0f}°/s) "
                                         f"is within what sampling and the segment table explain "
                                         f"({as_float(fl.get('threshold_deg_per_s')):.0f}°/s).")
-        parts.append(f'<p class="{"finding fix" if finding else "finding"}">{esc(_sentence(text))}</p>')
+        parts.append(f'<p class="{"finding fix" if finding else "finding"}">{esc(readout.sentence(text))}</p>')
     return "".join(parts) or '<p class="empty">No flight long enough to check its spin.</p>'
 
 
@@ -97,7 +92,7 @@ def fix_figure(clip) -> str:
                  '<span class="item"><span class="key solid"></span>on the ballistic arc at scene gravity '
                  '(Overlap Flight Fix layer)</span></p>')
     for fl in fix.get("flights") or []:
-        parts.append(f'<p class="finding">{esc(_sentence(fl.get("advice", "")))}</p>')
+        parts.append(f'<p class="finding">{esc(readout.sentence(fl.get("advice", "")))}</p>')
     return "".join(parts)
 
 

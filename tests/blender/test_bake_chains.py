@@ -44,7 +44,7 @@ def test_bake_matches_the_preview_and_remove_restores(rig):
     op(rig, "toggle_preview")
     assert op(rig, "bake_chains") == {'FINISHED'}
     assert bake_layer.has_bake(rig)
-    assert rig.overlap_assist.last_bake.startswith("1 chains: Baked")
+    assert rig.overlap_assist.last_bake.startswith("1 chain: Baked")
     baked = _poses(rig, frames)
     # The bake is the preview in keys: the same solve, written with ≤ 0.5° key tolerance.
     assert np.abs(baked - previewed).max() < 0.02

@@ -127,3 +127,11 @@ def test_readme_lists_every_command_and_output_file():
         assert name in section, name
     for flag in ("--scene", "--armature", "--in-place", "--jobs", "--tolerance-deg"):
         assert flag in section, flag
+
+
+def test_counts_and_sentences_read_as_english():
+    # US English (the brief): "1 chain", not "1 chains"; a phrase on its own line starts capitalized.
+    assert readout.count(1, "chain") == "1 chain" and readout.count(4, "chain") == "4 chains"
+    assert readout.count(0, "chain") == "0 chains"
+    assert readout.sentence("the body starts turning") == "The body starts turning"
+    assert readout.sentence("") == "" and readout.sentence(None) == ""
