@@ -189,9 +189,10 @@ diagonal: negligible with many interior frames, decisive with one."""
 def _interior(lo, hi):
     """Interior frame indices of segments (lo, hi) concatenated: (starts, segment id, frame index)."""
     n_inner = hi - lo - 1
-    starts = np.concatenate(([0], np.cumsum(n_inner)[:-1])).astype(np.intp)
+    ends = np.cumsum(n_inner)
+    starts = ends - n_inner
     sid = np.repeat(np.arange(lo.shape[0]), n_inner)
-    idx = lo[sid] + 1 + (np.arange(sid.shape[0]) - starts[sid])
+    idx = (lo + 1 - starts)[sid] + np.arange(sid.shape[0])
     return starts, sid, idx
 
 
@@ -203,6 +204,8 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None)
     Returns (largest error / budget per segment (S,), frame of it (S,), slope_out (c, S), slope_in (c, S)).
     """
     starts, sid, idx = _interior(lo, hi)
+    c = flat_values.shape[0]
+    n_seg = g.shape[0]
     base = g * n_frames
     x0 = frames[lo]
     h = frames[hi] - x0
@@ -212,35 +215,36 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None)
     w01 = s * s * (3.0 - 2.0 * s)
     w10 = s * om * om
     w11 = -s * s * om
-    y0 = np.take(flat_values, base + lo, axis=1)
-    y1 = np.take(flat_values, base + hi, axis=1)
+    ends_idx = np.concatenate((base + lo, base + hi))
+    y_ends = np.take(flat_values, ends_idx, axis=1)   # (c, 2S): values at lo, then at hi
     flat_idx = base[sid] + idx
-    r = np.take(flat_values, flat_idx, axis=1) - y0[:, sid] * w00 - y1[:, sid] * w01
+    r = np.take(flat_values, flat_idx, axis=1) - y_ends[:, sid] * w00 - y_ends[:, n_seg + sid] * w01
     allowed = np.take(budget, flat_idx, axis=1)
     if slopes is None:
         # Data slopes at the ends only (no array over every frame), both ends in one call.
         ends = data_slopes_at(frames, flat_values, np.concatenate((g, g)), np.concatenate((lo, hi)), n_frames)
-        a_d, b_d = h * ends[:, :g.shape[0]], h * ends[:, g.shape[0]:]
-        s11 = np.add.reduceat(w10 * w10, starts)
-        s12 = np.add.reduceat(w10 * w11, starts)
-        s22 = np.add.reduceat(w11 * w11, starts)
-        r1 = np.add.reduceat(r * w10, starts, axis=1)
-        r2 = np.add.reduceat(r * w11, starts, axis=1)
+        a_d, b_d = h * ends[:, :n_seg], h * ends[:, n_seg:]
+        # Every sum of the normal equations in one segmented reduction.
+        terms = np.empty((3 + 2 * c, sid.shape[0]))
+        np.multiply(w10, w10, out=terms[0])
+        np.multiply(w10, w11, out=terms[1])
+        np.multiply(w11, w11, out=terms[2])
+        np.multiply(r, w10, out=terms[3:3 + c])
+        np.multiply(r, w11, out=terms[3 + c:])
+        sums = np.add.reduceat(terms, starts, axis=1)
+        s11, s12, s22, r1, r2 = sums[0], sums[1], sums[2], sums[3:3 + c], sums[3 + c:]
         mu = _RIDGE * 0.5 * (s11 + s22) + 1e-300
         d11, d22 = s11 + mu, s22 + mu
         det = d11 * d22 - s12 * s12
         q1, q2 = r1 + mu * a_d, r2 + mu * b_d
-        a_f = (d22 * q1 - s12 * q2) / det
-        b_f = (d11 * q2 - s12 * q1) / det
-        e = np.abs(r - a_f[:, sid] * w10 - b_f[:, sid] * w11)
-        e /= allowed
-        ratio = e[0] if e.shape[0] == 1 else np.max(e, axis=0)
-        seg_max = np.maximum.reduceat(ratio, starts)
-        a, b = a_f, b_f
+        a = (d22 * q1 - s12 * q2) / det
+        b = (d11 * q2 - s12 * q1) / det
     else:
         a, b = h * slopes[0], h * slopes[1]
-        ratio = np.max(np.abs(r - a[:, sid] * w10 - b[:, sid] * w11) / allowed, axis=0)
-        seg_max = np.maximum.reduceat(ratio, starts)
+    e = np.abs(r - a[:, sid] * w10 - b[:, sid] * w11)
+    e /= allowed
+    ratio = e[0] if c == 1 else np.max(e, axis=0)
+    seg_max = np.maximum.reduceat(ratio, starts)
     pos = np.arange(sid.shape[0])
     first = np.minimum.reduceat(np.where(ratio == seg_max[sid], pos, pos.shape[0]), starts)
     return seg_max, idx[first], a / h, b / h
@@ -249,12 +253,14 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None)
 def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
     """:func:`_segment_pass` over segments in chunks of about ``_CHUNK_FRAMES`` interior frames."""
     n_inner = hi - lo - 1
+    ends = np.cumsum(n_inner)
+    if ends[-1] <= _CHUNK_FRAMES:   # one chunk: no copies into the outputs
+        return _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes)
     c = flat_values.shape[0]
     seg_max = np.empty(g.shape[0])
     worst = np.empty(g.shape[0], dtype=np.intp)
     out = np.empty((c, g.shape[0]))
     inn = np.empty((c, g.shape[0]))
-    ends = np.cumsum(n_inner)
     i = 0
     while i < g.shape[0]:
         j = int(np.searchsorted(ends, (ends[i - 1] if i else 0) + _CHUNK_FRAMES, side="right"))
@@ -342,14 +348,18 @@ def _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_o
         h_l = frames[seg_hi[j]] - frames[seg_lo[j]]
         h_r = frames[seg_hi[j + 1]] - frames[seg_lo[j + 1]]
         common = (slope_in[:, j] * h_l + slope_out[:, j + 1] * h_r) / (h_l + h_r)
-        ok = np.ones(j.size, dtype=bool)
-        for seg, new_out, new_in in ((j, slope_out[:, j], common), (j + 1, common, slope_in[:, j + 1])):
-            inner = seg_hi[seg] - seg_lo[seg] > 1
-            if inner.any():
-                seg_max, _w, _o, _i = _chunked(frames, flat_values, budget, n_frames, seg_g[seg[inner]],
-                                               seg_lo[seg[inner]], seg_hi[seg[inner]],
-                                               (new_out[:, inner], new_in[:, inner]))
-                ok[inner] &= seg_max <= 1.0
+        # Both neighbouring segments of every junction, evaluated in one pass.
+        seg = np.concatenate((j, j + 1))
+        new_out = np.concatenate((slope_out[:, j], common), axis=1)
+        new_in = np.concatenate((common, slope_in[:, j + 1]), axis=1)
+        seg_ok = np.ones(seg.size, dtype=bool)
+        inner = seg_hi[seg] - seg_lo[seg] > 1
+        if inner.any():
+            seg_max, _w, _o, _i = _chunked(frames, flat_values, budget, n_frames, seg_g[seg[inner]],
+                                           seg_lo[seg[inner]], seg_hi[seg[inner]],
+                                           (new_out[:, inner], new_in[:, inner]))
+            seg_ok[inner] = seg_max <= 1.0
+        ok = seg_ok[:j.size] & seg_ok[j.size:]
         j, common = j[ok], common[:, ok]
         slope_in[:, j] = common
         slope_out[:, j + 1] = common
