@@ -162,15 +162,22 @@ def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
     if n_frames == 2:
         return (flat_values[:, base + 1] - flat_values[:, base]) / (frames[1] - frames[0])
     centre = np.clip(index, 1, n_frames - 2)
+    h1, h2, ym, y0, yp, mid = _centred(frames, flat_values, base, centre)
+    first = -(2.0 * h1 + h2) / (h1 * (h1 + h2)) * ym + (h1 + h2) / (h1 * h2) * y0 - h1 / (h2 * (h1 + h2)) * yp
+    last = h2 / (h1 * (h1 + h2)) * ym - (h1 + h2) / (h1 * h2) * y0 + (2.0 * h2 + h1) / (h2 * (h1 + h2)) * yp
+    return np.where(index == 0, first, np.where(index == n_frames - 1, last, mid))
+
+
+def _centred(frames, flat_values, base, centre):
+    """Spacings, neighbouring samples and the centred three-point slope at frames ``centre``
+    (1 .. n - 2) of the groups starting at flat index ``base``: (h1, h2, ym, y0, yp, slope)."""
     xm, x0, xp = frames[centre - 1], frames[centre], frames[centre + 1]
     h1, h2 = x0 - xm, xp - x0
     ym = flat_values[:, base + centre - 1]
     y0 = flat_values[:, base + centre]
     yp = flat_values[:, base + centre + 1]
     mid = -h2 / (h1 * (h1 + h2)) * ym + (h2 - h1) / (h1 * h2) * y0 + h1 / (h2 * (h1 + h2)) * yp
-    first = -(2.0 * h1 + h2) / (h1 * (h1 + h2)) * ym + (h1 + h2) / (h1 * h2) * y0 - h1 / (h2 * (h1 + h2)) * yp
-    last = h2 / (h1 * (h1 + h2)) * ym - (h1 + h2) / (h1 * h2) * y0 + (2.0 * h2 + h1) / (h2 * (h1 + h2)) * yp
-    return np.where(index == 0, first, np.where(index == n_frames - 1, last, mid))
+    return h1, h2, ym, y0, yp, mid
 
 
 # ---------------------------------------------------------------------------------------------
@@ -196,11 +203,12 @@ def _interior(lo, hi):
     return starts, sid, idx
 
 
-def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
+def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data_ends=None):
     """Fit (or, with ``slopes`` given, only evaluate) Hermite segments of the groups' channels.
 
     flat_values, budget : (c, G * n_frames); g, lo, hi : (S,) segments with >= 1 interior frame;
-    slopes : optional (slope_out at lo, slope_in at hi), each (c, S).
+    slopes : optional (slope_out at lo, slope_in at hi), each (c, S); data_ends : for a fit, the
+    data's slopes (at lo, at hi), each (c, S).
     Returns (largest error / budget per segment (S,), frame of it (S,), slope_out (c, S), slope_in (c, S)).
     """
     starts, sid, idx = _interior(lo, hi)
@@ -221,9 +229,7 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None)
     r = np.take(flat_values, flat_idx, axis=1) - y_ends[:, sid] * w00 - y_ends[:, n_seg + sid] * w01
     allowed = np.take(budget, flat_idx, axis=1)
     if slopes is None:
-        # Data slopes at the ends only (no array over every frame), both ends in one call.
-        ends = data_slopes_at(frames, flat_values, np.concatenate((g, g)), np.concatenate((lo, hi)), n_frames)
-        a_d, b_d = h * ends[:, :n_seg], h * ends[:, n_seg:]
+        a_d, b_d = h * data_ends[0], h * data_ends[1]
         # Every sum of the normal equations in one segmented reduction.
         terms = np.empty((3 + 2 * c, sid.shape[0]))
         np.multiply(w10, w10, out=terms[0])
@@ -250,12 +256,12 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None)
     return seg_max, idx[first], a / h, b / h
 
 
-def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
+def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data_ends=None):
     """:func:`_segment_pass` over segments in chunks of about ``_CHUNK_FRAMES`` interior frames."""
     n_inner = hi - lo - 1
     ends = np.cumsum(n_inner)
     if ends[-1] <= _CHUNK_FRAMES:   # one chunk: no copies into the outputs
-        return _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes)
+        return _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes, data_ends)
     c = flat_values.shape[0]
     seg_max = np.empty(g.shape[0])
     worst = np.empty(g.shape[0], dtype=np.intp)
@@ -267,8 +273,9 @@ def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
         j = max(j, i + 1)
         part = slice(i, j)
         sl = None if slopes is None else (slopes[0][:, part], slopes[1][:, part])
+        de = None if data_ends is None else (data_ends[0][:, part], data_ends[1][:, part])
         seg_max[part], worst[part], out[:, part], inn[:, part] = _segment_pass(
-            frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl)
+            frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl, de)
         i = j
     return seg_max, worst, out, inn
 
@@ -303,6 +310,11 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges
         pend_hi = np.full(n_groups, n_frames - 1, dtype=np.intp)
     else:
         pend_g, pend_lo, pend_hi = (np.asarray(r, dtype=np.intp) for r in ranges)
+    # Data slopes at the segment ends (not at every frame: memory), carried from a segment to the
+    # two it splits into; only the split frames (always interior) get new ones.
+    ends = data_slopes_at(frames, flat_values, np.concatenate((pend_g, pend_g)), np.concatenate((pend_lo, pend_hi)),
+                          n_frames)
+    d_lo, d_hi = ends[:, :pend_g.shape[0]], ends[:, pend_g.shape[0]:]
     acc = []
     while pend_g.size:
         short = pend_hi - pend_lo < 2
@@ -312,13 +324,18 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges
                      / (frames[hi] - frames[lo]))
             acc.append((g, lo, hi, chord, chord))
             pend_g, pend_lo, pend_hi = pend_g[~short], pend_lo[~short], pend_hi[~short]
+            d_lo, d_hi = d_lo[:, ~short], d_hi[:, ~short]
             if not pend_g.size:
                 break
-        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend_g, pend_lo, pend_hi)
+        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend_g, pend_lo, pend_hi,
+                                               data_ends=(d_lo, d_hi))
         ok = seg_max <= 1.0
         acc.append((pend_g[ok], pend_lo[ok], pend_hi[ok], s_out[:, ok], s_in[:, ok]))
         bad = ~ok
         split = worst[bad]
+        d_split = _centred(frames, flat_values, pend_g[bad] * n_frames, split)[5]
+        d_lo = np.concatenate((d_lo[:, bad], d_split), axis=1)
+        d_hi = np.concatenate((d_split, d_hi[:, bad]), axis=1)
         pend_g = np.concatenate((pend_g[bad], pend_g[bad]))
         pend_lo, pend_hi = np.concatenate((pend_lo[bad], split)), np.concatenate((split, pend_hi[bad]))
     seg_g = np.concatenate([a[0] for a in acc])
