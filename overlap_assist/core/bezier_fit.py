@@ -162,22 +162,33 @@ def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
     if n_frames == 2:
         return (flat_values[:, base + 1] - flat_values[:, base]) / (frames[1] - frames[0])
     centre = np.clip(index, 1, n_frames - 2)
-    h1, h2, ym, y0, yp, mid = _centred(frames, flat_values, base, centre)
-    first = -(2.0 * h1 + h2) / (h1 * (h1 + h2)) * ym + (h1 + h2) / (h1 * h2) * y0 - h1 / (h2 * (h1 + h2)) * yp
-    last = h2 / (h1 * (h1 + h2)) * ym - (h1 + h2) / (h1 * h2) * y0 + (2.0 * h2 + h1) / (h2 * (h1 + h2)) * yp
-    return np.where(index == 0, first, np.where(index == n_frames - 1, last, mid))
-
-
-def _centred(frames, flat_values, base, centre):
-    """Spacings, neighbouring samples and the centred three-point slope at frames ``centre``
-    (1 .. n - 2) of the groups starting at flat index ``base``: (h1, h2, ym, y0, yp, slope)."""
     xm, x0, xp = frames[centre - 1], frames[centre], frames[centre + 1]
     h1, h2 = x0 - xm, xp - x0
     ym = flat_values[:, base + centre - 1]
     y0 = flat_values[:, base + centre]
     yp = flat_values[:, base + centre + 1]
     mid = -h2 / (h1 * (h1 + h2)) * ym + (h2 - h1) / (h1 * h2) * y0 + h1 / (h2 * (h1 + h2)) * yp
-    return h1, h2, ym, y0, yp, mid
+    first = -(2.0 * h1 + h2) / (h1 * (h1 + h2)) * ym + (h1 + h2) / (h1 * h2) * y0 - h1 / (h2 * (h1 + h2)) * yp
+    last = h2 / (h1 * (h1 + h2)) * ym - (h1 + h2) / (h1 * h2) * y0 + (2.0 * h2 + h1) / (h2 * (h1 + h2)) * yp
+    return np.where(index == 0, first, np.where(index == n_frames - 1, last, mid))
+
+
+def _centred_weights(frames):
+    """Weights (previous, own, next sample) of the centred three-point slope at every frame
+    (Fornberg 1988; rows 0 .. 2, shape (3, n), first and last column unused)."""
+    weights = np.zeros((3, frames.shape[0]))
+    if frames.shape[0] >= 3:
+        h1, h2 = frames[1:-1] - frames[:-2], frames[2:] - frames[1:-1]
+        weights[:, 1:-1] = (-h2 / (h1 * (h1 + h2)), (h2 - h1) / (h1 * h2), h1 / (h2 * (h1 + h2)))
+    return weights
+
+
+def _centred(weights, flat_values, base, centre):
+    """Centred three-point slopes at frames ``centre`` (1 .. n - 2) of the groups starting at flat
+    index ``base``, (c, m); ``weights`` from :func:`_centred_weights`."""
+    at = base + centre
+    return (weights[0, centre] * flat_values[:, at - 1] + weights[1, centre] * flat_values[:, at]
+            + weights[2, centre] * flat_values[:, at + 1])
 
 
 # ---------------------------------------------------------------------------------------------
@@ -310,39 +321,46 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges
         pend_hi = np.full(n_groups, n_frames - 1, dtype=np.intp)
     else:
         pend_g, pend_lo, pend_hi = (np.asarray(r, dtype=np.intp) for r in ranges)
-    # Data slopes at the segment ends (not at every frame: memory), carried from a segment to the
-    # two it splits into; only the split frames (always interior) get new ones.
+    # Pending segments as rows (group, lo, hi); the data's slopes at their ends (not at every frame:
+    # memory) as rows (c at lo, c at hi), carried from a segment to the two it splits into (only
+    # the split frames, always interior, get new ones). Segments without interior frames wait for
+    # their chords until the end.
+    pend = np.stack((pend_g, pend_lo, pend_hi))
     ends = data_slopes_at(frames, flat_values, np.concatenate((pend_g, pend_g)), np.concatenate((pend_lo, pend_hi)),
                           n_frames)
-    d_lo, d_hi = ends[:, :pend_g.shape[0]], ends[:, pend_g.shape[0]:]
-    acc = []
-    while pend_g.size:
-        short = pend_hi - pend_lo < 2
+    d_ends = np.concatenate((ends[:, :pend_g.shape[0]], ends[:, pend_g.shape[0]:]))
+    centred = _centred_weights(frames)
+    acc, shorts = [], []
+    while True:
+        short = pend[2] - pend[1] < 2
         if short.any():
-            g, lo, hi = pend_g[short], pend_lo[short], pend_hi[short]
-            chord = ((np.take(flat_values, g * n_frames + hi, axis=1) - np.take(flat_values, g * n_frames + lo, axis=1))
-                     / (frames[hi] - frames[lo]))
-            acc.append((g, lo, hi, chord, chord))
-            pend_g, pend_lo, pend_hi = pend_g[~short], pend_lo[~short], pend_hi[~short]
-            d_lo, d_hi = d_lo[:, ~short], d_hi[:, ~short]
-            if not pend_g.size:
-                break
-        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend_g, pend_lo, pend_hi,
-                                               data_ends=(d_lo, d_hi))
+            shorts.append(pend[:, short])
+            pend, d_ends = pend[:, ~short], d_ends[:, ~short]
+        if not pend.shape[1]:
+            break
+        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend[0], pend[1], pend[2],
+                                               data_ends=(d_ends[:c], d_ends[c:]))
         ok = seg_max <= 1.0
-        acc.append((pend_g[ok], pend_lo[ok], pend_hi[ok], s_out[:, ok], s_in[:, ok]))
+        acc.append((pend[:, ok], s_out[:, ok], s_in[:, ok]))
         bad = ~ok
+        n_bad = int(np.count_nonzero(bad))
         split = worst[bad]
-        d_split = _centred(frames, flat_values, pend_g[bad] * n_frames, split)[5]
-        d_lo = np.concatenate((d_lo[:, bad], d_split), axis=1)
-        d_hi = np.concatenate((d_split, d_hi[:, bad]), axis=1)
-        pend_g = np.concatenate((pend_g[bad], pend_g[bad]))
-        pend_lo, pend_hi = np.concatenate((pend_lo[bad], split)), np.concatenate((split, pend_hi[bad]))
-    seg_g = np.concatenate([a[0] for a in acc])
-    seg_lo = np.concatenate([a[1] for a in acc])
-    seg_hi = np.concatenate([a[2] for a in acc])
-    slope_out = np.concatenate([a[3] for a in acc], axis=1).reshape(c, -1)
-    slope_in = np.concatenate([a[4] for a in acc], axis=1).reshape(c, -1)
+        pend = np.concatenate((pend[:, bad], pend[:, bad]), axis=1)
+        pend[2, :n_bad] = split
+        pend[1, n_bad:] = split
+        d_split = _centred(centred, flat_values, pend[0, :n_bad] * n_frames, split)
+        d_ends = np.concatenate((d_ends[:, bad], d_ends[:, bad]), axis=1)
+        d_ends[c:, :n_bad] = d_split
+        d_ends[:c, n_bad:] = d_split
+    if shorts:
+        g, lo, hi = np.concatenate(shorts, axis=1)
+        chord = ((np.take(flat_values, g * n_frames + hi, axis=1) - np.take(flat_values, g * n_frames + lo, axis=1))
+                 / (frames[hi] - frames[lo]))
+        acc.append((np.stack((g, lo, hi)), chord, chord))
+    segs = np.concatenate([a[0] for a in acc], axis=1)
+    seg_g, seg_lo, seg_hi = segs
+    slope_out = np.concatenate([a[1] for a in acc], axis=1).reshape(c, -1)
+    slope_in = np.concatenate([a[2] for a in acc], axis=1).reshape(c, -1)
     order = np.argsort(seg_g * n_frames + seg_lo, kind="stable")
     seg_g, seg_lo, seg_hi = seg_g[order], seg_lo[order], seg_hi[order]
     slope_out, slope_in = slope_out[:, order], slope_in[:, order]
