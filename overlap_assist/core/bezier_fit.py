@@ -71,8 +71,20 @@ def evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame) -> np.ndarray:
     if active is None:   # scalars or n-d: one pass over everything
         t, lo, hi, a, b, c, u, tol = (np.ravel(v).copy() for v in (t, lo, hi, a, b, c, u, tol))
         active = np.arange(t.shape[0])
+    # First step on every element (most need exactly one: handles at about a third make x(t)
+    # nearly linear); converged elements keep their t, so this equals the step of the loop below.
+    f = ((a * t + b) * t + c) * t - u
+    open_ = np.abs(f) > tol
+    stepped = bool(open_.any())
+    if stepped:
+        hi = np.where(f > 0.0, t, hi)
+        lo = np.where(f > 0.0, lo, t)
+        d = (3.0 * a * t + 2.0 * b) * t + c
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = t - f / d
+        t = np.where(open_, np.where((d > 0.0) & (step > lo) & (step < hi), step, 0.5 * (lo + hi)), t)
     ta, la, ha, aa, ba, ca, ua, tola = t, lo, hi, a, b, c, u, tol
-    for _ in range(60):
+    for _ in range(59 if stepped else 0):
         f = ((aa * ta + ba) * ta + ca) * ta - ua
         open_ = np.abs(f) > tola
         if not open_.any():
@@ -87,7 +99,8 @@ def evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame) -> np.ndarray:
         with np.errstate(divide="ignore", invalid="ignore"):
             step = ta - f / d
         ta = np.where((d > 0.0) & (step > la) & (step < ha), step, 0.5 * (la + ha))
-    t[active] = ta
+    if ta is not t:
+        t[active] = ta
     t = t.reshape(np.shape(frame - x0)) if np.ndim(frame - x0) != 1 else t
     om = 1.0 - t
     return (y0 * om * om * om + 3.0 * hy0 * t * om * om + 3.0 * hy1 * t * t * om + y1 * t * t * t)
