@@ -63,7 +63,7 @@ def evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame) -> np.ndarray:
     b = 3.0 * p2 - 6.0 * p1
     a = p3 - 3.0 * p2 + 3.0 * p1
     a, b, c, u, p3 = np.broadcast_arrays(a, b, c, u, p3)
-    t = np.clip(u / p3, 0.0, 1.0)
+    t = np.minimum(np.maximum(u / p3, 0.0), 1.0)
     lo = np.zeros_like(t)
     hi = np.ones_like(t)
     tol = 4e-16 * (np.abs(p3) + np.abs(u)) + 1e-300
@@ -142,7 +142,7 @@ def evaluate_pairs(key_x, key_y, left, right, curve_of_key, n_curves, curve_q, f
     query = curve_q * span + (frame_q - origin)
     seg = np.searchsorted(key_code, query, side="right") - 1
     first_q, last_q = starts[curve_q], last[curve_q]
-    seg = np.clip(seg, first_q, last_q)
+    seg = np.minimum(np.maximum(seg, first_q), last_q)
     on_key = key_x[seg] == frame_q
     before = frame_q <= key_x[first_q]
     after = frame_q >= key_x[last_q]
@@ -174,7 +174,7 @@ def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
     base = group * n_frames
     if n_frames == 2:
         return (flat_values[:, base + 1] - flat_values[:, base]) / (frames[1] - frames[0])
-    centre = np.clip(index, 1, n_frames - 2)
+    centre = np.minimum(np.maximum(index, 1), n_frames - 2)
     xm, x0, xp = frames[centre - 1], frames[centre], frames[centre + 1]
     h1, h2 = x0 - xm, xp - x0
     ym = flat_values[:, base + centre - 1]
@@ -220,10 +220,10 @@ diagonal: negligible with many interior frames, decisive with one."""
 def _interior(lo, hi):
     """Interior frame indices of segments (lo, hi) concatenated: (starts, segment id, frame index)."""
     n_inner = hi - lo - 1
-    ends = np.cumsum(n_inner)
+    ends = n_inner.cumsum()
     starts = ends - n_inner
-    sid = np.repeat(np.arange(lo.shape[0]), n_inner)
-    idx = (lo + 1 - starts)[sid] + np.arange(sid.shape[0])
+    sid = np.arange(lo.shape[0]).repeat(n_inner)
+    idx = (lo + 1 - starts).take(sid) + np.arange(sid.shape[0])
     return starts, sid, idx
 
 
@@ -239,19 +239,19 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None,
     c = flat_values.shape[0]
     n_seg = g.shape[0]
     base = g * n_frames
-    x0 = frames[lo]
-    h = frames[hi] - x0
-    s = (frames[idx] - x0[sid]) / h[sid]
+    x0 = frames.take(lo)
+    h = frames.take(hi) - x0
+    s = (frames.take(idx) - x0.take(sid)) / h.take(sid)
     om = 1.0 - s
     w00 = (1.0 + 2.0 * s) * om * om
     w01 = s * s * (3.0 - 2.0 * s)
     w10 = s * om * om
     w11 = -s * s * om
     ends_idx = np.concatenate((base + lo, base + hi))
-    y_ends = np.take(flat_values, ends_idx, axis=1)   # (c, 2S): values at lo, then at hi
-    flat_idx = base[sid] + idx
-    r = np.take(flat_values, flat_idx, axis=1) - y_ends[:, sid] * w00 - y_ends[:, n_seg + sid] * w01
-    allowed = np.take(budget, flat_idx, axis=1)
+    y_ends = flat_values.take(ends_idx, axis=1)   # (c, 2S): values at lo, then at hi
+    flat_idx = base.take(sid) + idx
+    r = flat_values.take(flat_idx, axis=1) - y_ends.take(sid, axis=1) * w00 - y_ends.take(n_seg + sid, axis=1) * w01
+    allowed = budget.take(flat_idx, axis=1)
     if slopes is None:
         a_d, b_d = h * data_ends[0], h * data_ends[1]
         # Every sum of the normal equations in one segmented reduction.
@@ -271,19 +271,19 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None,
         b = (d11 * q2 - s12 * q1) / det
     else:
         a, b = h * slopes[0], h * slopes[1]
-    e = np.abs(r - a[:, sid] * w10 - b[:, sid] * w11)
+    e = np.abs(r - a.take(sid, axis=1) * w10 - b.take(sid, axis=1) * w11)
     e /= allowed
-    ratio = e[0] if c == 1 else np.max(e, axis=0)
+    ratio = e[0] if c == 1 else e.max(axis=0)
     seg_max = np.maximum.reduceat(ratio, starts)
     pos = np.arange(sid.shape[0])
-    first = np.minimum.reduceat(np.where(ratio == seg_max[sid], pos, pos.shape[0]), starts)
-    return seg_max, idx[first], a / h, b / h
+    first = np.minimum.reduceat(np.where(ratio == seg_max.take(sid), pos, pos.shape[0]), starts)
+    return seg_max, idx.take(first), a / h, b / h
 
 
 def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data_ends=None):
     """:func:`_segment_pass` over segments in chunks of about ``_CHUNK_FRAMES`` interior frames."""
     n_inner = hi - lo - 1
-    ends = np.cumsum(n_inner)
+    ends = n_inner.cumsum()
     if ends[-1] <= _CHUNK_FRAMES:   # one chunk: no copies into the outputs
         return _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes, data_ends)
     c = flat_values.shape[0]
