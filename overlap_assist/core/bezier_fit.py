@@ -388,8 +388,8 @@ def _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_o
     if not junction.size:
         return
     for parity in (0, 1):
-        j = junction[(np.arange(junction.size) % 2) == parity]
-        differs = np.any(slope_in[:, j] != slope_out[:, j + 1], axis=0)
+        j = junction[parity::2]
+        differs = (slope_in[:, j] != slope_out[:, j + 1]).any(axis=0)
         j = j[differs]
         if not j.size:
             continue

@@ -931,7 +931,7 @@ class _Plans:
             v = self.values[curves[rows]]
             b_min[rows] = np.min(self.budget[curves[rows]], axis=1)
             off_rest[rows] = np.max(np.abs(v - self.rest[curves[rows], None]), axis=1)
-            spread[rows] = np.ptp(v, axis=1)
+            spread[rows] = v.max(axis=1) - v.min(axis=1)
         b_min = b_min.astype(np.float32)
         near = self.has_rest[curves] & (off_rest <= b_min)
         starts = np.concatenate(([0], np.cumsum(self.n_comp[track_ids])[:-1]))   # each track's first curve
