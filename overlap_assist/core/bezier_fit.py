@@ -180,7 +180,7 @@ def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
     ym = flat_values[:, base + centre - 1]
     y0 = flat_values[:, base + centre]
     yp = flat_values[:, base + centre + 1]
-    mid = -h2 / (h1 * (h1 + h2)) * ym + (h2 - h1) / (h1 * h2) * y0 + h1 / (h2 * (h1 + h2)) * yp
+    mid = _centred(_centred_weights(frames), flat_values, base, centre)
     first = -(2.0 * h1 + h2) / (h1 * (h1 + h2)) * ym + (h1 + h2) / (h1 * h2) * y0 - h1 / (h2 * (h1 + h2)) * yp
     last = h2 / (h1 * (h1 + h2)) * ym - (h1 + h2) / (h1 * h2) * y0 + (2.0 * h2 + h1) / (h2 * (h1 + h2)) * yp
     return np.where(index == 0, first, np.where(index == n_frames - 1, last, mid))
