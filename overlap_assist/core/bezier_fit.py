@@ -233,7 +233,8 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None,
     flat_values, budget : (c, G * n_frames); g, lo, hi : (S,) segments with >= 1 interior frame;
     slopes : optional (slope_out at lo, slope_in at hi), each (c, S); data_ends : for a fit, the
     data's slopes (at lo, at hi), each (c, S).
-    Returns (largest error / budget per segment (S,), frame of it (S,), slope_out (c, S), slope_in (c, S)).
+    Returns (largest error / budget per segment (S,), frame of it (S,), slope_out (c, S), slope_in (c, S));
+    with ``slopes`` given only the first, the others None.
     """
     starts, sid, idx = _interior(lo, hi)
     c = flat_values.shape[0]
@@ -275,6 +276,8 @@ def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None,
     e /= allowed
     ratio = e[0] if c == 1 else e.max(axis=0)
     seg_max = np.maximum.reduceat(ratio, starts)
+    if slopes is not None:   # evaluation only: the largest error is all that is asked
+        return seg_max, None, None, None
     pos = np.arange(sid.shape[0])
     first = np.minimum.reduceat(np.where(ratio == seg_max.take(sid), pos, pos.shape[0]), starts)
     return seg_max, idx.take(first), a / h, b / h
@@ -287,10 +290,12 @@ def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data
     if ends[-1] <= _CHUNK_FRAMES:   # one chunk: no copies into the outputs
         return _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes, data_ends)
     c = flat_values.shape[0]
+    fit = slopes is None
     seg_max = np.empty(g.shape[0])
-    worst = np.empty(g.shape[0], dtype=np.intp)
-    out = np.empty((c, g.shape[0]))
-    inn = np.empty((c, g.shape[0]))
+    if fit:
+        worst = np.empty(g.shape[0], dtype=np.intp)
+        out = np.empty((c, g.shape[0]))
+        inn = np.empty((c, g.shape[0]))
     i = 0
     while i < g.shape[0]:
         j = int(np.searchsorted(ends, (ends[i - 1] if i else 0) + _CHUNK_FRAMES, side="right"))
@@ -298,10 +303,12 @@ def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data
         part = slice(i, j)
         sl = None if slopes is None else (slopes[0][:, part], slopes[1][:, part])
         de = None if data_ends is None else (data_ends[0][:, part], data_ends[1][:, part])
-        seg_max[part], worst[part], out[:, part], inn[:, part] = _segment_pass(
-            frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl, de)
+        got = _segment_pass(frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl, de)
+        seg_max[part] = got[0]
+        if fit:
+            worst[part], out[:, part], inn[:, part] = got[1:]
         i = j
-    return seg_max, worst, out, inn
+    return (seg_max, worst, out, inn) if fit else (seg_max, None, None, None)
 
 
 def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges=None):
@@ -371,11 +378,12 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges
                  / (frames[hi] - frames[lo]))
         acc.append((np.stack((g, lo, hi)), chord, chord))
     segs = np.concatenate([a[0] for a in acc], axis=1)
-    seg_g, seg_lo, seg_hi = segs
     slope_out = np.concatenate([a[1] for a in acc], axis=1).reshape(c, -1)
     slope_in = np.concatenate([a[2] for a in acc], axis=1).reshape(c, -1)
-    order = np.argsort(seg_g * n_frames + seg_lo, kind="stable")
-    seg_g, seg_lo, seg_hi = seg_g[order], seg_lo[order], seg_hi[order]
+    del acc   # memory: the pieces are no longer needed
+    order = np.argsort(segs[0] * n_frames + segs[1], kind="stable")
+    seg_g, seg_lo, seg_hi = segs[0, order], segs[1, order], segs[2, order]
+    del segs
     slope_out, slope_in = slope_out[:, order], slope_in[:, order]
     if align:
         _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_out, slope_in)
@@ -396,18 +404,19 @@ def _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_o
         h_l = frames[seg_hi[j]] - frames[seg_lo[j]]
         h_r = frames[seg_hi[j + 1]] - frames[seg_lo[j + 1]]
         common = (slope_in[:, j] * h_l + slope_out[:, j + 1] * h_r) / (h_l + h_r)
-        # Both neighbouring segments of every junction, evaluated in one pass.
-        seg = np.concatenate((j, j + 1))
-        new_out = np.concatenate((slope_out[:, j], common), axis=1)
-        new_in = np.concatenate((common, slope_in[:, j + 1]), axis=1)
-        seg_ok = np.ones(seg.size, dtype=bool)
-        inner = seg_hi[seg] - seg_lo[seg] > 1
-        if inner.any():
-            seg_max, _w, _o, _i = _chunked(frames, flat_values, budget, n_frames, seg_g[seg[inner]],
-                                           seg_lo[seg[inner]], seg_hi[seg[inner]],
-                                           (new_out[:, inner], new_in[:, inner]))
-            seg_ok[inner] = seg_max <= 1.0
-        ok = seg_ok[:j.size] & seg_ok[j.size:]
+        # Both neighbouring segments of every junction (those with interior frames), in one pass.
+        left = seg_hi[j] - seg_lo[j] > 1
+        right = seg_hi[j + 1] - seg_lo[j + 1] > 1
+        seg = np.concatenate((j[left], j[right] + 1))
+        ok = np.ones(j.size, dtype=bool)
+        if seg.size:
+            new_out = np.concatenate((slope_out[:, j[left]], common[:, right]), axis=1)
+            new_in = np.concatenate((common[:, left], slope_in[:, j[right] + 1]), axis=1)
+            seg_ok = _chunked(frames, flat_values, budget, n_frames, seg_g[seg], seg_lo[seg], seg_hi[seg],
+                              (new_out, new_in))[0] <= 1.0
+            n_left = int(np.count_nonzero(left))
+            ok[left] &= seg_ok[:n_left]
+            ok[right] &= seg_ok[n_left:]
         j, common = j[ok], common[:, ok]
         slope_in[:, j] = common
         slope_out[:, j + 1] = common
