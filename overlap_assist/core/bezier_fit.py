@@ -63,7 +63,7 @@ def evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame) -> np.ndarray:
     b = 3.0 * p2 - 6.0 * p1
     a = p3 - 3.0 * p2 + 3.0 * p1
     a, b, c, u, p3 = np.broadcast_arrays(a, b, c, u, p3)
-    t = np.clip(u / p3, 0.0, 1.0)
+    t = np.minimum(np.maximum(u / p3, 0.0), 1.0)
     lo = np.zeros_like(t)
     hi = np.ones_like(t)
     tol = 4e-16 * (np.abs(p3) + np.abs(u)) + 1e-300
@@ -71,8 +71,20 @@ def evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame) -> np.ndarray:
     if active is None:   # scalars or n-d: one pass over everything
         t, lo, hi, a, b, c, u, tol = (np.ravel(v).copy() for v in (t, lo, hi, a, b, c, u, tol))
         active = np.arange(t.shape[0])
+    # First step on every element (most need exactly one: handles at about a third make x(t)
+    # nearly linear); converged elements keep their t, so this equals the step of the loop below.
+    f = ((a * t + b) * t + c) * t - u
+    open_ = np.abs(f) > tol
+    stepped = bool(open_.any())
+    if stepped:
+        hi = np.where(f > 0.0, t, hi)
+        lo = np.where(f > 0.0, lo, t)
+        d = (3.0 * a * t + 2.0 * b) * t + c
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = t - f / d
+        t = np.where(open_, np.where((d > 0.0) & (step > lo) & (step < hi), step, 0.5 * (lo + hi)), t)
     ta, la, ha, aa, ba, ca, ua, tola = t, lo, hi, a, b, c, u, tol
-    for _ in range(60):
+    for _ in range(59 if stepped else 0):
         f = ((aa * ta + ba) * ta + ca) * ta - ua
         open_ = np.abs(f) > tola
         if not open_.any():
@@ -87,7 +99,8 @@ def evaluate_segments(x0, y0, hx0, hy0, hx1, hy1, x1, y1, frame) -> np.ndarray:
         with np.errstate(divide="ignore", invalid="ignore"):
             step = ta - f / d
         ta = np.where((d > 0.0) & (step > la) & (step < ha), step, 0.5 * (la + ha))
-    t[active] = ta
+    if ta is not t:
+        t[active] = ta
     t = t.reshape(np.shape(frame - x0)) if np.ndim(frame - x0) != 1 else t
     om = 1.0 - t
     return (y0 * om * om * om + 3.0 * hy0 * t * om * om + 3.0 * hy1 * t * t * om + y1 * t * t * t)
@@ -129,7 +142,7 @@ def evaluate_pairs(key_x, key_y, left, right, curve_of_key, n_curves, curve_q, f
     query = curve_q * span + (frame_q - origin)
     seg = np.searchsorted(key_code, query, side="right") - 1
     first_q, last_q = starts[curve_q], last[curve_q]
-    seg = np.clip(seg, first_q, last_q)
+    seg = np.minimum(np.maximum(seg, first_q), last_q)
     on_key = key_x[seg] == frame_q
     before = frame_q <= key_x[first_q]
     after = frame_q >= key_x[last_q]
@@ -161,16 +174,34 @@ def data_slopes_at(frames, flat_values, group, index, n_frames) -> np.ndarray:
     base = group * n_frames
     if n_frames == 2:
         return (flat_values[:, base + 1] - flat_values[:, base]) / (frames[1] - frames[0])
-    centre = np.clip(index, 1, n_frames - 2)
+    centre = np.minimum(np.maximum(index, 1), n_frames - 2)
     xm, x0, xp = frames[centre - 1], frames[centre], frames[centre + 1]
     h1, h2 = x0 - xm, xp - x0
     ym = flat_values[:, base + centre - 1]
     y0 = flat_values[:, base + centre]
     yp = flat_values[:, base + centre + 1]
-    mid = -h2 / (h1 * (h1 + h2)) * ym + (h2 - h1) / (h1 * h2) * y0 + h1 / (h2 * (h1 + h2)) * yp
+    mid = _centred(_centred_weights(frames), flat_values, base, centre)
     first = -(2.0 * h1 + h2) / (h1 * (h1 + h2)) * ym + (h1 + h2) / (h1 * h2) * y0 - h1 / (h2 * (h1 + h2)) * yp
     last = h2 / (h1 * (h1 + h2)) * ym - (h1 + h2) / (h1 * h2) * y0 + (2.0 * h2 + h1) / (h2 * (h1 + h2)) * yp
     return np.where(index == 0, first, np.where(index == n_frames - 1, last, mid))
+
+
+def _centred_weights(frames):
+    """Weights (previous, own, next sample) of the centred three-point slope at every frame
+    (Fornberg 1988; rows 0 .. 2, shape (3, n), first and last column unused)."""
+    weights = np.zeros((3, frames.shape[0]))
+    if frames.shape[0] >= 3:
+        h1, h2 = frames[1:-1] - frames[:-2], frames[2:] - frames[1:-1]
+        weights[:, 1:-1] = (-h2 / (h1 * (h1 + h2)), (h2 - h1) / (h1 * h2), h1 / (h2 * (h1 + h2)))
+    return weights
+
+
+def _centred(weights, flat_values, base, centre):
+    """Centred three-point slopes at frames ``centre`` (1 .. n - 2) of the groups starting at flat
+    index ``base``, (c, m); ``weights`` from :func:`_centred_weights`."""
+    at = base + centre
+    return (weights[0, centre] * flat_values[:, at - 1] + weights[1, centre] * flat_values[:, at]
+            + weights[2, centre] * flat_values[:, at + 1])
 
 
 # ---------------------------------------------------------------------------------------------
@@ -189,82 +220,95 @@ diagonal: negligible with many interior frames, decisive with one."""
 def _interior(lo, hi):
     """Interior frame indices of segments (lo, hi) concatenated: (starts, segment id, frame index)."""
     n_inner = hi - lo - 1
-    starts = np.concatenate(([0], np.cumsum(n_inner)[:-1])).astype(np.intp)
-    sid = np.repeat(np.arange(lo.shape[0]), n_inner)
-    idx = lo[sid] + 1 + (np.arange(sid.shape[0]) - starts[sid])
+    ends = n_inner.cumsum()
+    starts = ends - n_inner
+    sid = np.arange(lo.shape[0]).repeat(n_inner)
+    idx = (lo + 1 - starts).take(sid) + np.arange(sid.shape[0])
     return starts, sid, idx
 
 
-def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
+def _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data_ends=None):
     """Fit (or, with ``slopes`` given, only evaluate) Hermite segments of the groups' channels.
 
     flat_values, budget : (c, G * n_frames); g, lo, hi : (S,) segments with >= 1 interior frame;
-    slopes : optional (slope_out at lo, slope_in at hi), each (c, S).
-    Returns (largest error / budget per segment (S,), frame of it (S,), slope_out (c, S), slope_in (c, S)).
+    slopes : optional (slope_out at lo, slope_in at hi), each (c, S); data_ends : for a fit, the
+    data's slopes (at lo, at hi), each (c, S).
+    Returns (largest error / budget per segment (S,), frame of it (S,), slope_out (c, S), slope_in (c, S));
+    with ``slopes`` given only the first, the others None.
     """
     starts, sid, idx = _interior(lo, hi)
+    c = flat_values.shape[0]
+    n_seg = g.shape[0]
     base = g * n_frames
-    x0 = frames[lo]
-    h = frames[hi] - x0
-    s = (frames[idx] - x0[sid]) / h[sid]
+    x0 = frames.take(lo)
+    h = frames.take(hi) - x0
+    s = (frames.take(idx) - x0.take(sid)) / h.take(sid)
     om = 1.0 - s
     w00 = (1.0 + 2.0 * s) * om * om
     w01 = s * s * (3.0 - 2.0 * s)
     w10 = s * om * om
     w11 = -s * s * om
-    y0 = np.take(flat_values, base + lo, axis=1)
-    y1 = np.take(flat_values, base + hi, axis=1)
-    flat_idx = base[sid] + idx
-    r = np.take(flat_values, flat_idx, axis=1) - y0[:, sid] * w00 - y1[:, sid] * w01
-    allowed = np.take(budget, flat_idx, axis=1)
+    ends_idx = np.concatenate((base + lo, base + hi))
+    y_ends = flat_values.take(ends_idx, axis=1)   # (c, 2S): values at lo, then at hi
+    flat_idx = base.take(sid) + idx
+    r = flat_values.take(flat_idx, axis=1) - y_ends.take(sid, axis=1) * w00 - y_ends.take(n_seg + sid, axis=1) * w01
+    allowed = budget.take(flat_idx, axis=1)
     if slopes is None:
-        # Data slopes at the ends only (no array over every frame), both ends in one call.
-        ends = data_slopes_at(frames, flat_values, np.concatenate((g, g)), np.concatenate((lo, hi)), n_frames)
-        a_d, b_d = h * ends[:, :g.shape[0]], h * ends[:, g.shape[0]:]
-        s11 = np.add.reduceat(w10 * w10, starts)
-        s12 = np.add.reduceat(w10 * w11, starts)
-        s22 = np.add.reduceat(w11 * w11, starts)
-        r1 = np.add.reduceat(r * w10, starts, axis=1)
-        r2 = np.add.reduceat(r * w11, starts, axis=1)
+        a_d, b_d = h * data_ends[0], h * data_ends[1]
+        # Every sum of the normal equations in one segmented reduction.
+        terms = np.empty((3 + 2 * c, sid.shape[0]))
+        np.multiply(w10, w10, out=terms[0])
+        np.multiply(w10, w11, out=terms[1])
+        np.multiply(w11, w11, out=terms[2])
+        np.multiply(r, w10, out=terms[3:3 + c])
+        np.multiply(r, w11, out=terms[3 + c:])
+        sums = np.add.reduceat(terms, starts, axis=1)
+        s11, s12, s22, r1, r2 = sums[0], sums[1], sums[2], sums[3:3 + c], sums[3 + c:]
         mu = _RIDGE * 0.5 * (s11 + s22) + 1e-300
         d11, d22 = s11 + mu, s22 + mu
         det = d11 * d22 - s12 * s12
         q1, q2 = r1 + mu * a_d, r2 + mu * b_d
-        a_f = (d22 * q1 - s12 * q2) / det
-        b_f = (d11 * q2 - s12 * q1) / det
-        e = np.abs(r - a_f[:, sid] * w10 - b_f[:, sid] * w11)
-        e /= allowed
-        ratio = e[0] if e.shape[0] == 1 else np.max(e, axis=0)
-        seg_max = np.maximum.reduceat(ratio, starts)
-        a, b = a_f, b_f
+        a = (d22 * q1 - s12 * q2) / det
+        b = (d11 * q2 - s12 * q1) / det
     else:
         a, b = h * slopes[0], h * slopes[1]
-        ratio = np.max(np.abs(r - a[:, sid] * w10 - b[:, sid] * w11) / allowed, axis=0)
-        seg_max = np.maximum.reduceat(ratio, starts)
+    e = np.abs(r - a.take(sid, axis=1) * w10 - b.take(sid, axis=1) * w11)
+    e /= allowed
+    ratio = e[0] if c == 1 else e.max(axis=0)
+    seg_max = np.maximum.reduceat(ratio, starts)
+    if slopes is not None:   # evaluation only: the largest error is all that is asked
+        return seg_max, None, None, None
     pos = np.arange(sid.shape[0])
-    first = np.minimum.reduceat(np.where(ratio == seg_max[sid], pos, pos.shape[0]), starts)
-    return seg_max, idx[first], a / h, b / h
+    first = np.minimum.reduceat(np.where(ratio == seg_max.take(sid), pos, pos.shape[0]), starts)
+    return seg_max, idx.take(first), a / h, b / h
 
 
-def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None):
+def _chunked(frames, flat_values, budget, n_frames, g, lo, hi, slopes=None, data_ends=None):
     """:func:`_segment_pass` over segments in chunks of about ``_CHUNK_FRAMES`` interior frames."""
     n_inner = hi - lo - 1
+    ends = n_inner.cumsum()
+    if ends[-1] <= _CHUNK_FRAMES:   # one chunk: no copies into the outputs
+        return _segment_pass(frames, flat_values, budget, n_frames, g, lo, hi, slopes, data_ends)
     c = flat_values.shape[0]
+    fit = slopes is None
     seg_max = np.empty(g.shape[0])
-    worst = np.empty(g.shape[0], dtype=np.intp)
-    out = np.empty((c, g.shape[0]))
-    inn = np.empty((c, g.shape[0]))
-    ends = np.cumsum(n_inner)
+    if fit:
+        worst = np.empty(g.shape[0], dtype=np.intp)
+        out = np.empty((c, g.shape[0]))
+        inn = np.empty((c, g.shape[0]))
     i = 0
     while i < g.shape[0]:
         j = int(np.searchsorted(ends, (ends[i - 1] if i else 0) + _CHUNK_FRAMES, side="right"))
         j = max(j, i + 1)
         part = slice(i, j)
         sl = None if slopes is None else (slopes[0][:, part], slopes[1][:, part])
-        seg_max[part], worst[part], out[:, part], inn[:, part] = _segment_pass(
-            frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl)
+        de = None if data_ends is None else (data_ends[0][:, part], data_ends[1][:, part])
+        got = _segment_pass(frames, flat_values, budget, n_frames, g[part], lo[part], hi[part], sl, de)
+        seg_max[part] = got[0]
+        if fit:
+            worst[part], out[:, part], inn[:, part] = got[1:]
         i = j
-    return seg_max, worst, out, inn
+    return (seg_max, worst, out, inn) if fit else (seg_max, None, None, None)
 
 
 def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges=None):
@@ -297,31 +341,49 @@ def fit_keys(frames, flat_values, budget, n_groups, n_frames, align=True, ranges
         pend_hi = np.full(n_groups, n_frames - 1, dtype=np.intp)
     else:
         pend_g, pend_lo, pend_hi = (np.asarray(r, dtype=np.intp) for r in ranges)
-    acc = []
-    while pend_g.size:
-        short = pend_hi - pend_lo < 2
+    # Pending segments as rows (group, lo, hi); the data's slopes at their ends (not at every frame:
+    # memory) as rows (c at lo, c at hi), carried from a segment to the two it splits into (only
+    # the split frames, always interior, get new ones). Segments without interior frames wait for
+    # their chords until the end.
+    pend = np.stack((pend_g, pend_lo, pend_hi))
+    ends = data_slopes_at(frames, flat_values, np.concatenate((pend_g, pend_g)), np.concatenate((pend_lo, pend_hi)),
+                          n_frames)
+    d_ends = np.concatenate((ends[:, :pend_g.shape[0]], ends[:, pend_g.shape[0]:]))
+    centred = _centred_weights(frames)
+    acc, shorts = [], []
+    while True:
+        short = pend[2] - pend[1] < 2
         if short.any():
-            g, lo, hi = pend_g[short], pend_lo[short], pend_hi[short]
-            chord = ((np.take(flat_values, g * n_frames + hi, axis=1) - np.take(flat_values, g * n_frames + lo, axis=1))
-                     / (frames[hi] - frames[lo]))
-            acc.append((g, lo, hi, chord, chord))
-            pend_g, pend_lo, pend_hi = pend_g[~short], pend_lo[~short], pend_hi[~short]
-            if not pend_g.size:
-                break
-        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend_g, pend_lo, pend_hi)
+            shorts.append(pend[:, short])
+            pend, d_ends = pend[:, ~short], d_ends[:, ~short]
+        if not pend.shape[1]:
+            break
+        seg_max, worst, s_out, s_in = _chunked(frames, flat_values, budget, n_frames, pend[0], pend[1], pend[2],
+                                               data_ends=(d_ends[:c], d_ends[c:]))
         ok = seg_max <= 1.0
-        acc.append((pend_g[ok], pend_lo[ok], pend_hi[ok], s_out[:, ok], s_in[:, ok]))
+        acc.append((pend[:, ok], s_out[:, ok], s_in[:, ok]))
         bad = ~ok
+        n_bad = int(np.count_nonzero(bad))
         split = worst[bad]
-        pend_g = np.concatenate((pend_g[bad], pend_g[bad]))
-        pend_lo, pend_hi = np.concatenate((pend_lo[bad], split)), np.concatenate((split, pend_hi[bad]))
-    seg_g = np.concatenate([a[0] for a in acc])
-    seg_lo = np.concatenate([a[1] for a in acc])
-    seg_hi = np.concatenate([a[2] for a in acc])
-    slope_out = np.concatenate([a[3] for a in acc], axis=1).reshape(c, -1)
-    slope_in = np.concatenate([a[4] for a in acc], axis=1).reshape(c, -1)
-    order = np.argsort(seg_g * n_frames + seg_lo, kind="stable")
-    seg_g, seg_lo, seg_hi = seg_g[order], seg_lo[order], seg_hi[order]
+        pend = np.concatenate((pend[:, bad], pend[:, bad]), axis=1)
+        pend[2, :n_bad] = split
+        pend[1, n_bad:] = split
+        d_split = _centred(centred, flat_values, pend[0, :n_bad] * n_frames, split)
+        d_ends = np.concatenate((d_ends[:, bad], d_ends[:, bad]), axis=1)
+        d_ends[c:, :n_bad] = d_split
+        d_ends[:c, n_bad:] = d_split
+    if shorts:
+        g, lo, hi = np.concatenate(shorts, axis=1)
+        chord = ((np.take(flat_values, g * n_frames + hi, axis=1) - np.take(flat_values, g * n_frames + lo, axis=1))
+                 / (frames[hi] - frames[lo]))
+        acc.append((np.stack((g, lo, hi)), chord, chord))
+    segs = np.concatenate([a[0] for a in acc], axis=1)
+    slope_out = np.concatenate([a[1] for a in acc], axis=1).reshape(c, -1)
+    slope_in = np.concatenate([a[2] for a in acc], axis=1).reshape(c, -1)
+    del acc   # memory: the pieces are no longer needed
+    order = np.argsort(segs[0] * n_frames + segs[1], kind="stable")
+    seg_g, seg_lo, seg_hi = segs[0, order], segs[1, order], segs[2, order]
+    del segs
     slope_out, slope_in = slope_out[:, order], slope_in[:, order]
     if align:
         _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_out, slope_in)
@@ -334,22 +396,27 @@ def _align(frames, flat_values, budget, n_frames, seg_g, seg_lo, seg_hi, slope_o
     if not junction.size:
         return
     for parity in (0, 1):
-        j = junction[(np.arange(junction.size) % 2) == parity]
-        differs = np.any(slope_in[:, j] != slope_out[:, j + 1], axis=0)
+        j = junction[parity::2]
+        differs = (slope_in[:, j] != slope_out[:, j + 1]).any(axis=0)
         j = j[differs]
         if not j.size:
             continue
         h_l = frames[seg_hi[j]] - frames[seg_lo[j]]
         h_r = frames[seg_hi[j + 1]] - frames[seg_lo[j + 1]]
         common = (slope_in[:, j] * h_l + slope_out[:, j + 1] * h_r) / (h_l + h_r)
+        # Both neighbouring segments of every junction (those with interior frames), in one pass.
+        left = seg_hi[j] - seg_lo[j] > 1
+        right = seg_hi[j + 1] - seg_lo[j + 1] > 1
+        seg = np.concatenate((j[left], j[right] + 1))
         ok = np.ones(j.size, dtype=bool)
-        for seg, new_out, new_in in ((j, slope_out[:, j], common), (j + 1, common, slope_in[:, j + 1])):
-            inner = seg_hi[seg] - seg_lo[seg] > 1
-            if inner.any():
-                seg_max, _w, _o, _i = _chunked(frames, flat_values, budget, n_frames, seg_g[seg[inner]],
-                                               seg_lo[seg[inner]], seg_hi[seg[inner]],
-                                               (new_out[:, inner], new_in[:, inner]))
-                ok[inner] &= seg_max <= 1.0
+        if seg.size:
+            new_out = np.concatenate((slope_out[:, j[left]], common[:, right]), axis=1)
+            new_in = np.concatenate((common[:, left], slope_in[:, j[right] + 1]), axis=1)
+            seg_ok = _chunked(frames, flat_values, budget, n_frames, seg_g[seg], seg_lo[seg], seg_hi[seg],
+                              (new_out, new_in))[0] <= 1.0
+            n_left = int(np.count_nonzero(left))
+            ok[left] &= seg_ok[:n_left]
+            ok[right] &= seg_ok[n_left:]
         j, common = j[ok], common[:, ok]
         slope_in[:, j] = common
         slope_out[:, j + 1] = common

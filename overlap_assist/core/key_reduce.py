@@ -808,41 +808,46 @@ def _measure(frames, tracks, track_ids, curve0, keys, rest_flat, top_eval, selec
 def _batch_errors(frames, tracks, batch, curve0, keys, bounds, counts_all, heights, rest_flat, top_eval,
                   round_float32, evaluate_pairs):
     from .rotations import euler_to_quat
-    rows = np.concatenate([np.arange(curve0[t], curve0[t] + tracks[t].values.shape[1]) for t, _sel in batch])
-    sels = [sel for t, sel in batch for _c in range(tracks[t].values.shape[1])]         # per row
-    widths = np.array([s.shape[0] for s in sels])
-    row_start = np.concatenate(([0], np.cumsum(widths)[:-1]))
-    frame_idx = np.concatenate(sels)
+    n_comp = np.array([tracks[t].values.shape[1] for t, _sel in batch])
+    first_row = np.cumsum(n_comp) - n_comp                                              # per track
+    rows = np.repeat(curve0[[t for t, _sel in batch]] - first_row, n_comp) + np.arange(first_row[-1] + n_comp[-1])
+    track_width = np.array([sel.shape[0] for _t, sel in batch])
+    widths = np.repeat(track_width, n_comp)                                             # per row
+    row_start = np.cumsum(widths) - widths
+    frame_idx = np.concatenate([sel for t, sel in batch for _c in range(tracks[t].values.shape[1])])
     row_of = np.repeat(np.arange(rows.shape[0]), widths)
     evaluated = rest_flat[rows][row_of]                                                 # (M,)
     live = np.flatnonzero(counts_all[rows] > 0)
     if live.size:
-        key_sel = np.concatenate([np.arange(bounds[rows[i]], bounds[rows[i] + 1]) for i in live])
+        n_keys = counts_all[rows[live]]
+        key_start = np.cumsum(n_keys) - n_keys
+        key_sel = np.repeat(bounds[rows[live]] - key_start, n_keys) + np.arange(key_start[-1] + n_keys[-1])
         compact = np.full(rows.shape[0], -1, dtype=np.intp)
         compact[live] = np.arange(live.size)
         q = compact[row_of] >= 0
         evaluated[q] = evaluate_pairs(round_float32(keys.x[key_sel]), round_float32(keys.y[key_sel]),
                                       round_float32(keys.left[key_sel]), round_float32(keys.right[key_sel]),
-                                      np.repeat(np.arange(live.size), counts_all[rows[live]]), live.size,
+                                      np.repeat(np.arange(live.size), n_keys), live.size,
                                       compact[row_of[q]], frames[frame_idx[q]])
     # Float32 allowance per component: largest value, 3 x largest handle height, largest basis angle.
     top = np.maximum(top_eval[rows], np.maximum.reduceat(np.abs(evaluated), row_start))
     top_eval[rows] = top
     top = top.copy()
     if live.size:
-        top[live] += 3.0 * np.maximum.reduceat(heights[key_sel],
-                                               np.concatenate(([0], np.cumsum(counts_all[rows[live]])[:-1])))
+        top[live] += 3.0 * np.maximum.reduceat(heights[key_sel], key_start)
     out = [None] * len(batch)
     by_mode = {}
     for j, (t, _sel) in enumerate(batch):
         by_mode.setdefault(tracks[t].mode, []).append(j)
-    first_row = np.concatenate(([0], np.cumsum([tracks[t].values.shape[1] for t, _s in batch])[:-1]))
     for mode, members in by_mode.items():
         c = 4 if mode == "QUATERNION" else 3
-        got = np.concatenate([evaluated[row_start[first_row[j]]:row_start[first_row[j]] + c * widths[first_row[j]]]
-                              .reshape(c, -1) for j in members], axis=1)                 # (c, M)
+        fr, w = first_row[members], track_width[members]
+        col = np.repeat(np.arange(len(members)), w)                   # member of each column
+        col_start = np.cumsum(w) - w
+        at = row_start[fr][col] + np.arange(col.shape[0]) - col_start[col]
+        got = evaluated[at + np.arange(c)[:, None] * w[col]]                            # (c, M)
         want = np.concatenate([tracks[batch[j][0]].values[batch[j][1]].T for j in members], axis=1)
-        scale = np.stack([1.0 + top[first_row[j]:first_row[j] + c] for j in members])    # (T, c)
+        scale = 1.0 + top[fr[:, None] + np.arange(c)]                                   # (T, c)
         if mode != "QUATERNION":
             basis_rows = [tracks[batch[j][0]].basis for j in members]
             basis = np.concatenate([b[batch[j][1]].T if b is not None else np.zeros((c, batch[j][1].shape[0]))
@@ -853,8 +858,7 @@ def _batch_errors(frames, tracks, batch, curve0, keys, bounds, counts_all, heigh
             want = euler_to_quat((want + basis).T, mode).T
         angles = _angle_between(got, want)
         margins = 2.0 * _F32_MARGIN_REL * np.sum(scale, axis=1)
-        ends = np.cumsum([batch[j][1].shape[0] for j in members])
-        for j, part, margin in zip(members, np.split(angles, ends[:-1]), margins):
+        for j, part, margin in zip(members, np.split(angles, (col_start + w)[:-1]), margins):
             out[j] = (part, float(margin))
     return out
 
@@ -927,7 +931,7 @@ class _Plans:
             v = self.values[curves[rows]]
             b_min[rows] = np.min(self.budget[curves[rows]], axis=1)
             off_rest[rows] = np.max(np.abs(v - self.rest[curves[rows], None]), axis=1)
-            spread[rows] = np.ptp(v, axis=1)
+            spread[rows] = v.max(axis=1) - v.min(axis=1)
         b_min = b_min.astype(np.float32)
         near = self.has_rest[curves] & (off_rest <= b_min)
         starts = np.concatenate(([0], np.cumsum(self.n_comp[track_ids])[:-1]))   # each track's first curve
