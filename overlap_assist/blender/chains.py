@@ -8,7 +8,7 @@ from bpy.props import EnumProperty, IntProperty, StringProperty
 from ..core import presets
 from ..core.errors import OverlapAssistError
 from . import chain_sim, preview
-from .selection import armature_poll, bone_selected
+from .selection import OnArmature, armature_poll, bone_selected
 from .op_errors import guarded
 
 
@@ -107,17 +107,12 @@ def _active_chain(context):
 
 
 @guarded
-class OVERLAP_ASSIST_OT_add_chains(bpy.types.Operator):
+class OVERLAP_ASSIST_OT_add_chains(OnArmature, bpy.types.Operator):
     """Turn the selected pose bones into chains (one per selected branch); the first bone's parent is the anchor"""
     bl_idname = "overlap_assist.add_chains"
     bl_label = "Add Chains from Selection"
-    bl_options = {'REGISTER', 'UNDO'}
 
     preset: EnumProperty(name="Preset", items=preset_items, description="Settings for the new chains")
-
-    @classmethod
-    def poll(cls, context):
-        return armature_poll(cls, context)
 
     def execute(self, context):
         obj = context.active_object
