@@ -635,7 +635,7 @@ normalisation removes, but its neighbours' weights are finite). Measured on the 
 
 
 def _quaternion_budget_weights(quats: np.ndarray) -> np.ndarray:
-    """Budget weights (4, n) of a unit quaternion track's components (4, n), from the geometry of
+    """Budget weights (..., 4) of unit quaternions' components (..., 4), from the geometry of
     the normalisation Blender applies before a quaternion is used.
 
     The rotation angle between unit q and (q + e) / |q + e| is 2 asin(|e_perp| / |q + e|), where
@@ -644,8 +644,7 @@ def _quaternion_budget_weights(quats: np.ndarray) -> np.ndarray:
     rotation) can move far more than one near 0 for the same angle. The weights 1 / sqrt(1 - q_i^2),
     at most ``_QUAT_WEIGHT_MAX``, equalise the components' effect on the angle; they are >= 1, so the
     share above is the budget of the components that matter most."""
-    q = quats / np.linalg.norm(quats, axis=0, keepdims=True)
-    return 1.0 / np.sqrt(np.maximum(1.0 - q * q, 1.0 / _QUAT_WEIGHT_MAX**2))
+    return 1.0 / np.sqrt(np.maximum(1.0 - quats * quats, 1.0 / _QUAT_WEIGHT_MAX**2))
 
 
 _MAX_ROUNDS = 8
@@ -795,23 +794,18 @@ def _flat_keys(frames, values_flat, segs, const_curve, const_value) -> _FlatKeys
     return _FlatKeys(k_curve, x, y, left, right, aligned)
 
 
-def _angle_between(qa, qb):
-    """Rotation angle (rad) between quaternions (components first, (4, n)); qa need not be unit."""
-    return _quaternion_angle_error(qa, qb / np.linalg.norm(qb, axis=0, keepdims=True))
-
-
-def _measure(frames, tracks, track_ids, curve0, keys, rest_flat, top_eval, selection=None):
+def _measure(frames, plans, track_ids, keys, top_eval, selection=None):
     """Per track of ``track_ids``: (rotation angle between Blender's evaluation of the keys and the
     targets at the selected frames, float32 allowance in rad for Blender's own arithmetic).
 
     ``selection``: {track: frame indices} to evaluate (default: every frame). Curves without keys
-    hold ``rest_flat``. ``top_eval`` (C,), the largest |value| evaluated so far per curve, is
+    hold their rest values. ``top_eval`` (C,), the largest |value| evaluated so far per curve, is
     raised in place (the allowance uses it: frames not evaluated again keep their old values).
     Tracks are evaluated in batches of about ``_EVAL_CHUNK`` channel-frames."""
     from .bezier_fit import evaluate_pairs, round_float32
     n = frames.shape[0]
     every = np.arange(n)
-    bounds = np.searchsorted(keys.curve, np.arange(rest_flat.shape[0] + 1))
+    bounds = np.searchsorted(keys.curve, np.arange(plans.rest.shape[0] + 1))
     counts_all = np.diff(bounds)
     heights = np.maximum(np.abs(keys.left[:, 1] - keys.y), np.abs(keys.right[:, 1] - keys.y))
     out = []
@@ -821,15 +815,15 @@ def _measure(frames, tracks, track_ids, curve0, keys, rest_flat, top_eval, selec
         batch.append((t, sel))
         size += 4 * sel.shape[0]
         if size >= _EVAL_CHUNK or pos == len(track_ids) - 1:
-            out.extend(_batch_errors(frames, tracks, batch, curve0, keys, bounds, counts_all, heights, rest_flat,
-                                     top_eval, round_float32, evaluate_pairs))
+            out.extend(_batch_errors(frames, plans, batch, keys, bounds, counts_all, heights, top_eval,
+                                     round_float32, evaluate_pairs))
             batch, size = [], 0
     return out
 
 
-def _batch_errors(frames, tracks, batch, curve0, keys, bounds, counts_all, heights, rest_flat, top_eval,
-                  round_float32, evaluate_pairs):
+def _batch_errors(frames, plans, batch, keys, bounds, counts_all, heights, top_eval, round_float32, evaluate_pairs):
     from .rotations import euler_to_quat
+    tracks, curve0, rest_flat = plans.tracks, plans.curve0, plans.rest
     n_comp = np.array([tracks[t].values.shape[1] for t, _sel in batch])
     first_row = np.cumsum(n_comp) - n_comp                                              # per track
     rows = np.repeat(curve0[[t for t, _sel in batch]] - first_row, n_comp) + np.arange(first_row[-1] + n_comp[-1])
@@ -868,17 +862,14 @@ def _batch_errors(frames, tracks, batch, curve0, keys, bounds, counts_all, heigh
         col_start = np.cumsum(w) - w
         at = row_start[fr][col] + np.arange(col.shape[0]) - col_start[col]
         got = evaluated[at + np.arange(c)[:, None] * w[col]]                            # (c, M)
-        want = np.concatenate([tracks[batch[j][0]].values[batch[j][1]].T for j in members], axis=1)
+        ids = [batch[j][0] for j in members]
+        want = np.concatenate([plans.targets[t][batch[j][1]].T for t, j in zip(ids, members)], axis=1)
         scale = 1.0 + top[fr[:, None] + np.arange(c)]                                   # (T, c)
         if mode != "QUATERNION":
-            basis_rows = [tracks[batch[j][0]].basis for j in members]
-            basis = np.concatenate([b[batch[j][1]].T if b is not None else np.zeros((c, batch[j][1].shape[0]))
-                                    for j, b in zip(members, basis_rows)], axis=1)
-            scale = scale + np.stack([np.max(np.abs(b), axis=0) if b is not None else np.zeros(c)
-                                      for b in basis_rows])
+            basis = np.concatenate([plans.bases[t][batch[j][1]].T for t, j in zip(ids, members)], axis=1)
+            scale = scale + plans.basis_top[ids]
             got = euler_to_quat((got + basis).T, mode).T
-            want = euler_to_quat((want + basis).T, mode).T
-        angles = _angle_between(got, want)
+        angles = _quaternion_angle_error(got, want)
         margins = 2.0 * _F32_MARGIN_REL * np.sum(scale, axis=1)
         for j, part, margin in zip(members, np.split(angles, (col_start + w)[:-1]), margins):
             out[j] = (part, float(margin))
@@ -925,14 +916,33 @@ class _Plans:
         self.rest = np.concatenate([t.rest if t.rest is not None else np.zeros(c)
                                     for t, c in zip(tracks, self.n_comp)]).astype(np.float64)
         self.is_quat = np.repeat([t.mode == "QUATERNION" for t in tracks], self.n_comp)
-        self.budget = np.empty((self.values.shape[0], n), dtype=np.float32)   # float32: only compared
+        # What the measurement compares with, once per call: unit target quaternions (T, n, 4); for
+        # Euler tracks the angles the curves are added to, (n, 3) each, and their largest |value|
+        # (float32 allowance).
+        from .rotations import euler_to_quat
+        self.targets = np.empty((len(tracks), n, 4))
+        self.bases = [None] * len(tracks)
+        self.basis_top = np.zeros((len(tracks), 3))
+        by_mode = {}
         for t, track in enumerate(tracks):
-            share = _BUDGET_SHARE["QUATERNION" if track.mode == "QUATERNION" else "EULER"]
-            rows = slice(self.curve0[t], self.curve0[t] + self.n_comp[t])
-            if track.mode == "QUATERNION":
-                self.budget[rows] = (share * tolerance_rad) * _quaternion_budget_weights(self.values[rows])
+            by_mode.setdefault(track.mode, []).append(t)
+            if track.mode != "QUATERNION":
+                self.bases[t] = np.zeros((n, 3)) if track.basis is None else track.basis
+                self.basis_top[t] = np.max(np.abs(self.bases[t]), axis=0)
+        for mode, ids in by_mode.items():
+            if mode == "QUATERNION":
+                quats = np.stack([tracks[t].values for t in ids])
             else:
-                self.budget[rows] = np.float32(share * tolerance_rad)
+                quats = euler_to_quat(np.concatenate([tracks[t].values + self.bases[t] for t in ids]), mode)
+                quats = quats.reshape(len(ids), n, 4)
+            self.targets[ids] = quats / np.linalg.norm(quats, axis=2, keepdims=True)
+        self.budget = np.empty((self.values.shape[0], n), dtype=np.float32)   # float32: only compared
+        self.budget[~self.is_quat] = np.float32(_BUDGET_SHARE["EULER"] * tolerance_rad)
+        quat_ids = by_mode.get("QUATERNION", [])
+        if quat_ids:
+            weights = _quaternion_budget_weights(self.targets[quat_ids])                    # (Tq, n, 4)
+            self.budget[self.is_quat] = ((_BUDGET_SHARE["QUATERNION"] * tolerance_rad)
+                                         * weights.transpose(0, 2, 1).reshape(-1, n))
         self.kind = np.zeros(self.values.shape[0], dtype=np.int8)
         self.const = np.zeros(self.values.shape[0])
         self.segs = _NO_SEGMENTS
@@ -1137,7 +1147,7 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
         bounds = np.searchsorted(keys.curve, np.arange(n_curves + 1))
         # Later rounds evaluate only the frames whose values can have changed (the others keep
         # their measured angles: their segments, keys and handles are the same).
-        measured = _measure(frames, tracks, todo, plans.curve0, keys, plans.rest, top_eval, selection)
+        measured = _measure(frames, plans, todo, keys, top_eval, selection)
         again, factors = [], []
         for i, (err, margin) in zip(todo, measured):
             if selection is not None and selection.get(i) is not None:
@@ -1164,6 +1174,6 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
         keys = plans.keys(todo)
         bounds = np.searchsorted(keys.curve, np.arange(n_curves + 1))
         top_eval[curves] = 0.0
-        for i, (err, _margin) in zip(todo, _measure(frames, tracks, todo, plans.curve0, keys, plans.rest, top_eval)):
+        for i, (err, _margin) in zip(todo, _measure(frames, plans, todo, keys, top_eval)):
             out[i] = plans.rotation_keys(i, keys, bounds, float(np.max(err)))
     return out
