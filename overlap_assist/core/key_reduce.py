@@ -619,7 +619,7 @@ def reduce_quaternion_groups(frames, quats, tolerance_rad: float, *, with_errors
 # around those frames and the bone is fitted again; a bone that still fails after a few rounds
 # gets a key on every frame (exact at the frames). Nothing is written that was not measured.
 
-_BUDGET_SHARE = {"QUATERNION": 0.35, "EULER": 0.8}
+_BUDGET_SHARE = {"QUATERNION": 0.35, "EULER": 0.75}
 """First budget of each channel as a fraction of the tolerance. Quaternion components: times the
 weights of :func:`_quaternion_budget_weights`; Euler axes: the rotation angle is at most the sum
 of the three axis errors (the angle between rotations is a metric invariant under composition)
@@ -896,6 +896,41 @@ def _bad_pairs(bad_frames, tracks_failed, curve0, n_comp, kind, want_kind):
     return np.concatenate(curves), np.concatenate(frames_)
 
 
+_TURN_PROMINENCE = 2.0
+"""A turning point of a curve's data seeds a key when its value differs from both neighbouring
+turning points (or the curve's ends) by more than this many budgets. The fit then starts from the
+ranges between such points instead of the whole clip: a key on an extreme is where most segments
+would put one after a few splits (and where animators put keys: common practice), and the fit
+needs fewer passes. Measured on the bench's inputs (Rigify rig, demo): 1 left 5-6 % fewer keys
+than no seeds, 2 left 7-10 % fewer, 4 about as many as 2 on the Rigify rig; the fit takes about
+2/3 of the time. Seeds only choose where the fit starts; every segment is still fitted and every
+bone measured."""
+
+
+def _turning_point_ranges(values, budget, curves, n):
+    """Initial fit ranges (curve, lo, hi) of ``curves``: from the first to the last frame, split
+    at the turning points of the data that stand out (``_TURN_PROMINENCE``)."""
+    if not curves.size:
+        return curves, np.zeros(0, dtype=np.intp), np.zeros(0, dtype=np.intp)
+    v = values[curves]
+    d = np.diff(v, axis=1)
+    turn = np.zeros(v.shape, dtype=bool)
+    turn[:, 1:-1] = d[:, :-1] * d[:, 1:] < 0.0     # strict sign changes of the slope
+    turn[:, 0] = turn[:, -1] = True
+    ci, fi = np.nonzero(turn)                      # by curve, then frame
+    val = v[ci, fi]
+    limit = _TURN_PROMINENCE * budget[curves[ci], fi]
+    same_prev = np.concatenate(([False], ci[1:] == ci[:-1]))
+    same_next = np.concatenate((ci[1:] == ci[:-1], [False]))
+    step_prev = np.abs(val - np.concatenate(([0.0], val[:-1])))
+    step_next = np.abs(val - np.concatenate((val[1:], [0.0])))
+    end = (fi == 0) | (fi == n - 1)
+    keep = end | (same_prev & (step_prev > limit) & same_next & (step_next > limit))
+    ci, fi = ci[keep], fi[keep]
+    starts = np.flatnonzero(ci[1:] == ci[:-1])     # a range from each kept point to the next
+    return curves[ci[starts]], fi[starts].astype(np.intp), fi[starts + 1].astype(np.intp)
+
+
 def _row_blocks(n_rows, n_frames):
     """Slices of rows holding about ``_EVAL_CHUNK`` values each (at least one row)."""
     step = max(1, _EVAL_CHUNK // max(n_frames, 1))
@@ -988,9 +1023,15 @@ class _Plans:
         redo_mask = np.zeros(self.values.shape[0], dtype=bool)
         redo_mask[redo] = True
         keep = ~redo_mask[self.segs.curve]
-        range_curve = [curves[fresh]]
-        range_lo = [np.zeros(int(fresh.sum()), dtype=np.intp)]
-        range_hi = [np.full(int(fresh.sum()), n - 1, dtype=np.intp)]
+        # Curves planned afresh start from their turning points (separate frames; shared frames fit
+        # every component of a track together, from its first to its last frame).
+        if shared_frames:
+            range_curve = [curves[fresh]]
+            range_lo = [np.zeros(int(fresh.sum()), dtype=np.intp)]
+            range_hi = [np.full(int(fresh.sum()), n - 1, dtype=np.intp)]
+        else:
+            rc0, rlo0, rhi0 = _turning_point_ranges(self.values, self.budget, curves[fresh], n)
+            range_curve, range_lo, range_hi = [rc0], [rlo0], [rhi0]
         if partial:
             pc, pf = _bad_pairs(bad_frames, track_ids, self.curve0, self.n_comp, self.kind, _SEGMENTS)
             pc, pf = pc[~redo_mask[pc]], pf[~redo_mask[pc]]
