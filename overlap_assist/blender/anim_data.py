@@ -208,11 +208,25 @@ def new_fcurves(bag, channels):
 _BEZIER = None
 
 
+def _bezier_enums():
+    """Enum values of the interpolation and handle types the writers use (looked up once)."""
+    global _BEZIER
+    if _BEZIER is None:
+        kp_type = bpy.types.Keyframe
+        _BEZIER = {"BEZIER": _enum_value(kp_type, "interpolation", "BEZIER"),
+                   **{t: _enum_value(kp_type, "handle_left_type", t) for t in ("ALIGNED", "FREE", "AUTO_CLAMPED")}}
+    return _BEZIER
+
+
 def _handle_type_values(handle_type, n):
-    """(n,) int32 enum values of a handle type name, or of one name per key."""
+    """(n,) int32 enum values of a handle type name, of one name per key, or of one bool per key
+    (True: 'ALIGNED', False: 'FREE', the reducer's two types)."""
     if isinstance(handle_type, str):
         return np.full(n, _enum_value(bpy.types.Keyframe, "handle_left_type", handle_type), dtype=np.int32)
     names = np.asarray(handle_type)
+    if names.dtype == bool:
+        enums = _bezier_enums()
+        return np.where(names, enums["ALIGNED"], enums["FREE"]).astype(np.int32)
     aligned = names == "ALIGNED"
     if _BEZIER is not None and np.all(aligned | (names == "FREE")):   # the reducer's two types: no lookups
         return np.where(aligned, _BEZIER["ALIGNED"], _BEZIER["FREE"]).astype(np.int32)
@@ -229,16 +243,13 @@ def write_bezier_curves(fcurves, cos, handles_left=None, handles_right=None, han
     (frame, value) for ``fcurves[i]``. A curve without handles (``handles_left`` None, or its
     entry None) keeps Blender's automatic (AUTO_CLAMPED) handles, computed by ``fc.update()``;
     with them both handle types are set to ``handle_type`` and kept as written: one type name for
-    all curves, or a sequence with one entry per curve, each a name or an (n_i,) sequence of names
-    (fitted handles: 'ALIGNED' where both sides share a slope, 'FREE' elsewhere). Interpolation and
+    all curves, or a sequence with one entry per curve, each a name, an (n_i,) sequence of names or
+    an (n_i,) bool array (fitted handles: True, 'ALIGNED', where both sides share a slope; False,
+    'FREE', elsewhere). Interpolation and
     handle types are written only where the defaults of new keys (read once, on the first curve)
     differ.
     """
-    global _BEZIER
-    if _BEZIER is None:
-        kp_type = bpy.types.Keyframe
-        _BEZIER = {"BEZIER": _enum_value(kp_type, "interpolation", "BEZIER"),
-                   **{t: _enum_value(kp_type, "handle_left_type", t) for t in ("ALIGNED", "FREE", "AUTO_CLAMPED")}}
+    enums = _bezier_enums()
     per_curve = not isinstance(handle_type, str)
     defaults = None
     for i, fc in enumerate(fcurves):
@@ -262,11 +273,11 @@ def write_bezier_curves(fcurves, cos, handles_left=None, handles_right=None, han
             points.foreach_set("handle_left_type", types)
             points.foreach_set("handle_right_type", types)
         elif defaults[0] != wanted_type or defaults[1] != wanted_type:
-            types = np.full(n, _BEZIER[wanted_type], dtype=np.int32)
+            types = np.full(n, enums[wanted_type], dtype=np.int32)
             points.foreach_set("handle_left_type", types)
             points.foreach_set("handle_right_type", types)
         if defaults[2] != 'BEZIER':
-            points.foreach_set("interpolation", np.full(n, _BEZIER["BEZIER"], dtype=np.int32))
+            points.foreach_set("interpolation", np.full(n, enums["BEZIER"], dtype=np.int32))
         fc.update()
 
 

@@ -30,7 +30,8 @@ _IDENTITY = np.array([1.0, 0.0, 0.0, 0.0])
 @dataclass(frozen=True, slots=True)
 class BoneKeys:
     """Keys for one bone's rotation channel, one entry per component (None: no curve is written);
-    handles None = Blender's automatic; handle_types: per-key type names or None (AUTO_CLAMPED)."""
+    handles None = Blender's automatic; handle_types: per component, per-key type names or bools
+    (True: ALIGNED, False: FREE), or None (AUTO_CLAMPED)."""
 
     co: object                # sequence of (n_i, 2) float32 (frame, value) or None
     handle_left: object       # sequence of (n_i, 2) float32, or None for automatic handles
@@ -153,7 +154,7 @@ def _reduce_all(frames, tracks, tol_rad, shared_frames=False):
             co.append(pair)
             lefts.append(np.ascontiguousarray(ch.handle_left, dtype=np.float32))
             rights.append(np.ascontiguousarray(ch.handle_right, dtype=np.float32))
-            types.append(ch.handle_types())
+            types.append(ch.aligned)   # bool per key: ALIGNED, else FREE
         out[name] = BoneKeys(co, lefts, rights, types)
     return out, max((k.max_error_rad for k in reduced), default=0.0)
 

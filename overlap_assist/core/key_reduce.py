@@ -623,15 +623,26 @@ _BUDGET_SHARE = {"QUATERNION": 0.35, "EULER": 0.75}
 """First budget of each channel as a fraction of the tolerance. Quaternion components: times the
 weights of :func:`_quaternion_budget_weights`; Euler axes: the rotation angle is at most the sum
 of the three axis errors (the angle between rotations is a metric invariant under composition)
-and typically about their root sum of squares. Measured on the demo and a Rigify rig (bench),
-these shares gave the fewest keys after the checks, and the quaternion share passes the checks in
-the first round on most bones (every round costs a fit and a measurement); any share is safe
-because every bone is measured."""
+and typically about their root sum of squares. Any share is safe because every bone is measured;
+these are a trade between keys and rounds (each round that refits failed bones costs a fit and a
+measurement, nearly fixed costs on a short clip). Measured on the bench's inputs (demo, Rigify
+rig): quaternion 0.32 / 0.35 / 0.38 left 362 / 350 / 339 keys on the demo, the last in two
+rounds (1.5x the time); Euler 0.75 / 0.8 left 319 / 314 on the demo and 8 237 / 8 106 on the
+Rigify rig, 0.8 in two rounds on the demo (1.5x the time). Before the weights, quaternion 0.45
+was the best share for keys (and needed three rounds)."""
+
+_BUDGET_SHARE_SHARED = {"QUATERNION": 0.45, "EULER": 0.8}
+"""The same with every component of a bone keyed on the same frames: a segment of the bone ends
+where its worst component needs a key, so the others are mostly well inside their budgets and
+larger shares pay. Measured (bench inputs): Q 0.35 / 0.45 / 0.55 left 812 / 740 / 712 keys on the
+demo, 19 988 / 18 696 / 18 488 on the Rigify rig, but 0.55 took 1.7x the time there (more rounds);
+Euler 0.75 / 0.8 / 0.9: 14 775 / 14 502 / 14 004 on the Rigify rig, 0.9 in 1.7x the time."""
 
 _QUAT_WEIGHT_MAX = 8.0
 """Largest quaternion budget weight (a component at +-1: only a change of length, which the
-normalisation removes, but its neighbours' weights are finite). Measured on the bench's inputs:
-8 left 9 % fewer keys than no weights (1) on the Rigify rig, 4 left 7 % fewer, 16 the same as 8."""
+normalisation removes, but its neighbours' weights are finite). Measured on the bench's inputs
+(share 0.35, fits from the whole clip): 8 left 9 % fewer keys than no weights (1) on the Rigify
+rig, 4 left 7 % fewer, 16 the same as 8."""
 
 
 def _quaternion_budget_weights(quats: np.ndarray) -> np.ndarray:
@@ -940,7 +951,7 @@ def _row_blocks(n_rows, n_frames):
 class _Plans:
     """Every curve's plan and the flat inputs of the fit (see the comment above ``_NO_CURVE``)."""
 
-    def __init__(self, frames, tracks, tolerance_rad):
+    def __init__(self, frames, tracks, tolerance_rad, shared_frames=False):
         n = frames.shape[0]
         self.frames, self.tracks, self.n = frames, tracks, n
         self.n_comp = np.array([t.values.shape[1] for t in tracks], dtype=np.intp)
@@ -971,12 +982,13 @@ class _Plans:
                 quats = euler_to_quat(np.concatenate([tracks[t].values + self.bases[t] for t in ids]), mode)
                 quats = quats.reshape(len(ids), n, 4)
             self.targets[ids] = quats / np.linalg.norm(quats, axis=2, keepdims=True)
+        shares = _BUDGET_SHARE_SHARED if shared_frames else _BUDGET_SHARE
         self.budget = np.empty((self.values.shape[0], n), dtype=np.float32)   # float32: only compared
-        self.budget[~self.is_quat] = np.float32(_BUDGET_SHARE["EULER"] * tolerance_rad)
+        self.budget[~self.is_quat] = np.float32(shares["EULER"] * tolerance_rad)
         quat_ids = by_mode.get("QUATERNION", [])
         if quat_ids:
             weights = _quaternion_budget_weights(self.targets[quat_ids])                    # (Tq, n, 4)
-            self.budget[self.is_quat] = ((_BUDGET_SHARE["QUATERNION"] * tolerance_rad)
+            self.budget[self.is_quat] = ((shares["QUATERNION"] * tolerance_rad)
                                          * weights.transpose(0, 2, 1).reshape(-1, n))
         self.kind = np.zeros(self.values.shape[0], dtype=np.int8)
         self.const = np.zeros(self.values.shape[0])
@@ -1172,7 +1184,7 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
     tracks = checked
     if not tracks:
         return []
-    plans = _Plans(frames, tracks, tolerance_rad)
+    plans = _Plans(frames, tracks, tolerance_rad, shared_frames)
     n_curves = plans.values.shape[0]
     out = [None] * len(tracks)
     todo = list(range(len(tracks)))
