@@ -162,6 +162,48 @@ def test_quaternion_rotation_error_within_tolerance():
         assert angle.max() <= TOL_DEG
 
 
+def test_quaternion_budget_weights_equalise_each_components_effect_on_the_angle():
+    """An error of (weight x d) in any one component of a unit quaternion turns the normalised
+    result by the same angle, 2 d for small d (scipy's rotation angle as the reference)."""
+    from overlap_assist.core.key_reduce import _QUAT_WEIGHT_MAX, _quaternion_budget_weights
+    rng = np.random.default_rng(11)
+    quats = Rotation.random(40, random_state=rng).as_quat()            # (x, y, z, w), unit
+    weights = _quaternion_budget_weights(quats)
+    d = 1e-5
+    uncapped = weights < _QUAT_WEIGHT_MAX
+    assert uncapped.mean() > 0.9
+    for i in range(4):
+        moved = quats.copy()
+        moved[:, i] += weights[:, i] * d
+        angle = (Rotation.from_quat(quats).inv() * Rotation.from_quat(moved)).magnitude()   # normalises
+        np.testing.assert_allclose(angle[uncapped[:, i]], 2 * d, rtol=1e-3)
+        assert np.all(angle[~uncapped[:, i]] <= 2 * d * (1 + 1e-3))   # capped: a smaller effect
+    # w of a small rotation (near 1) may move ~8x further than x, y, z for the same angle
+    near_identity = _quaternion_budget_weights(np.array([[np.cos(0.01), np.sin(0.01), 0.0, 0.0]]))[0]
+    assert near_identity[0] == _QUAT_WEIGHT_MAX and near_identity[2] == 1.0
+
+
+def test_keys_start_on_the_prominent_turning_points():
+    """A damped oscillation (Ogata 2010 Sec. 5-3) gets a key on each extreme that stands out from
+    the budget; small wiggles (well inside the budget) get none."""
+    n = 240
+    frames = np.arange(1.0, n + 1)
+    angle = ring_down(n, amp_deg=25.0, f_hz=1.0, zeta=0.1, start_s=0.2)
+    wiggle = np.deg2rad(0.02) * np.sin(np.arange(n) * 2.9)                # 1/25 of the tolerance
+    values = np.stack((angle + wiggle, np.zeros(n), np.zeros(n)), axis=1)
+    keys = reduce_rotation_keys(frames, [RotationTrack(values, "XYZ", None, np.zeros(3))], np.deg2rad(TOL_DEG))[0]
+    x = keys.channels[0]
+    d = np.diff(angle)
+    extremes = np.flatnonzero((d[:-1] * d[1:] < 0) & (np.abs(angle[1:-1]) > np.deg2rad(2.0))) + 1
+    assert extremes.size >= 5
+    keyed = set(np.asarray(x.frames, dtype=int) - 1)
+    near = [min(abs(k - e) for k in keyed) for e in extremes]
+    assert max(near) == 0, (extremes, sorted(keyed))   # on the sampled extreme itself
+    assert x.n_keys < 3 * extremes.size                 # the wiggle's turning points are not keyed
+    got = reference_curve(x, frames, 0.0)
+    assert np.rad2deg(np.max(np.abs(got - values[:, 0]))) <= TOL_DEG
+
+
 def test_per_channel_tolerance_was_not_a_rotation_bound():
     """The old per-axis reduction at 0.5 deg exceeds 0.5 deg of rotation; the new one does not.
     The same swing on all three axes: per-axis errors of one sign add up (near the identity the
