@@ -923,6 +923,11 @@ def _turning_point_ranges(values, budget, curves, n):
     at the turning points of the data that stand out (``_TURN_PROMINENCE``)."""
     if not curves.size:
         return curves, np.zeros(0, dtype=np.intp), np.zeros(0, dtype=np.intp)
+    parts = [_turning_point_block(values, budget, curves[rows], n) for rows in _row_blocks(curves.shape[0], n)]
+    return tuple(np.concatenate(p) for p in zip(*parts))   # blocks of rows: bounded temporaries
+
+
+def _turning_point_block(values, budget, curves, n):
     v = values[curves]
     d = np.diff(v, axis=1)
     turn = np.zeros(v.shape, dtype=bool)
