@@ -646,7 +646,7 @@ rig, 4 left 7 % fewer, 16 the same as 8."""
 
 
 def _quaternion_budget_weights(quats: np.ndarray) -> np.ndarray:
-    """Budget weights (..., 4) of unit quaternions' components (..., 4), from the geometry of
+    """Budget weights of unit quaternions' components (any layout, elementwise), from the geometry of
     the normalisation Blender applies before a quaternion is used.
 
     The rotation angle between unit q and (q + e) / |q + e| is 2 asin(|e_perp| / |q + e|), where
@@ -805,6 +805,11 @@ def _flat_keys(frames, values_flat, segs, const_curve, const_value) -> _FlatKeys
     return _FlatKeys(k_curve, x, y, left, right, aligned)
 
 
+def _angle_between(qa, qb):
+    """Rotation angle (rad) between quaternions (components first, (4, n)); qa need not be unit."""
+    return _quaternion_angle_error(qa, qb / np.linalg.norm(qb, axis=0, keepdims=True))
+
+
 def _measure(frames, plans, track_ids, keys, top_eval, selection=None):
     """Per track of ``track_ids``: (rotation angle between Blender's evaluation of the keys and the
     targets at the selected frames, float32 allowance in rad for Blender's own arithmetic).
@@ -874,13 +879,15 @@ def _batch_errors(frames, plans, batch, keys, bounds, counts_all, heights, top_e
         at = row_start[fr][col] + np.arange(col.shape[0]) - col_start[col]
         got = evaluated[at + np.arange(c)[:, None] * w[col]]                            # (c, M)
         ids = [batch[j][0] for j in members]
-        want = np.concatenate([plans.targets[t][batch[j][1]].T for t, j in zip(ids, members)], axis=1)
+        want = np.concatenate([tracks[t].values[batch[j][1]].T for t, j in zip(ids, members)], axis=1)
         scale = 1.0 + top[fr[:, None] + np.arange(c)]                                   # (T, c)
         if mode != "QUATERNION":
-            basis = np.concatenate([plans.bases[t][batch[j][1]].T for t, j in zip(ids, members)], axis=1)
+            basis = np.concatenate([tracks[t].basis[batch[j][1]].T if tracks[t].basis is not None
+                                    else np.zeros((c, batch[j][1].shape[0])) for t, j in zip(ids, members)], axis=1)
             scale = scale + plans.basis_top[ids]
             got = euler_to_quat((got + basis).T, mode).T
-        angles = _quaternion_angle_error(got, want)
+            want = euler_to_quat((want + basis).T, mode).T
+        angles = _angle_between(got, want)
         margins = 2.0 * _F32_MARGIN_REL * np.sum(scale, axis=1)
         for j, part, margin in zip(members, np.split(angles, (col_start + w)[:-1]), margins):
             out[j] = (part, float(margin))
@@ -967,34 +974,20 @@ class _Plans:
         self.rest = np.concatenate([t.rest if t.rest is not None else np.zeros(c)
                                     for t, c in zip(tracks, self.n_comp)]).astype(np.float64)
         self.is_quat = np.repeat([t.mode == "QUATERNION" for t in tracks], self.n_comp)
-        # What the measurement compares with, once per call: unit target quaternions (T, n, 4); for
-        # Euler tracks the angles the curves are added to, (n, 3) each, and their largest |value|
-        # (float32 allowance).
-        from .rotations import euler_to_quat
-        self.targets = np.empty((len(tracks), n, 4))
-        self.bases = [None] * len(tracks)
+        # The float32 allowance of Euler tracks uses the largest |angle| their curves are added to.
         self.basis_top = np.zeros((len(tracks), 3))
-        by_mode = {}
         for t, track in enumerate(tracks):
-            by_mode.setdefault(track.mode, []).append(t)
-            if track.mode != "QUATERNION":
-                self.bases[t] = np.zeros((n, 3)) if track.basis is None else track.basis
-                self.basis_top[t] = np.max(np.abs(self.bases[t]), axis=0)
-        for mode, ids in by_mode.items():
-            if mode == "QUATERNION":
-                quats = np.stack([tracks[t].values for t in ids])
-            else:
-                quats = euler_to_quat(np.concatenate([tracks[t].values + self.bases[t] for t in ids]), mode)
-                quats = quats.reshape(len(ids), n, 4)
-            self.targets[ids] = quats / np.linalg.norm(quats, axis=2, keepdims=True)
+            if track.mode != "QUATERNION" and track.basis is not None:
+                self.basis_top[t] = np.max(np.abs(track.basis), axis=0)
         shares = _BUDGET_SHARE_SHARED if shared_frames else _BUDGET_SHARE
         self.budget = np.empty((self.values.shape[0], n), dtype=np.float32)   # float32: only compared
         self.budget[~self.is_quat] = np.float32(shares["EULER"] * tolerance_rad)
-        quat_ids = by_mode.get("QUATERNION", [])
-        if quat_ids:
-            weights = _quaternion_budget_weights(self.targets[quat_ids])                    # (Tq, n, 4)
-            self.budget[self.is_quat] = ((shares["QUATERNION"] * tolerance_rad)
-                                         * weights.transpose(0, 2, 1).reshape(-1, n))
+        quat_rows = np.flatnonzero(self.is_quat).reshape(-1, 4)               # a track's four rows
+        for block in _row_blocks(quat_rows.shape[0], 4 * n):   # blocks of tracks: bounded temporaries
+            rows = quat_rows[block].ravel()
+            q = self.values[rows].reshape(-1, 4, n)
+            q = q / np.linalg.norm(q, axis=1, keepdims=True)
+            self.budget[rows] = ((shares["QUATERNION"] * tolerance_rad) * _quaternion_budget_weights(q)).reshape(-1, n)
         self.kind = np.zeros(self.values.shape[0], dtype=np.int8)
         self.const = np.zeros(self.values.shape[0])
         self.segs = _NO_SEGMENTS
