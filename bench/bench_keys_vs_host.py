@@ -13,8 +13,8 @@ For each rig and rotation mode, in one run:
    (mode 'ERROR') run headless through ``context.temp_override`` with the window's first area
    switched to the Graph Editor, at error margins from 1e-5 to 0.3 (each on a fresh copy of the
    per-frame keys, timed), its true error measured the same way. Its key count at our exact true
-   error is interpolated linearly in the error between the two margins that bracket it; its time is the mean
-   of the medians of 3 runs at each of those two margins.
+   error is interpolated linearly in the error between the two margins that bracket it; its time
+   is the mean of the medians of 3 runs at each of those two margins.
 
 Rigs: a Rigify human (the bundled add-on's metarig, generated), 85 of its control bones keyed
 every 8 frames and given damped ring-down offsets after four landings (0.5-3 Hz, damping ratio
