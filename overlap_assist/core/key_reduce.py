@@ -41,7 +41,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .bezier_fit import data_slopes_at, evaluate_pairs, fit_keys, round_float32
 from .errors import InputError
+from .rotations import euler_to_quat
 
 __all__ = [
     "ReducedCurve",
@@ -818,7 +820,6 @@ def _measure(frames, plans, track_ids, keys, top_eval, selection=None):
     hold their rest values. ``top_eval`` (C,), the largest |value| evaluated so far per curve, is
     raised in place (the allowance uses it: frames not evaluated again keep their old values).
     Tracks are evaluated in batches of about ``_EVAL_CHUNK`` channel-frames."""
-    from .bezier_fit import evaluate_pairs, round_float32
     n = frames.shape[0]
     every = np.arange(n)
     bounds = np.searchsorted(keys.curve, np.arange(plans.rest.shape[0] + 1))
@@ -831,14 +832,12 @@ def _measure(frames, plans, track_ids, keys, top_eval, selection=None):
         batch.append((t, sel))
         size += 4 * sel.shape[0]
         if size >= _EVAL_CHUNK or pos == len(track_ids) - 1:
-            out.extend(_batch_errors(frames, plans, batch, keys, bounds, counts_all, heights, top_eval,
-                                     round_float32, evaluate_pairs))
+            out.extend(_batch_errors(frames, plans, batch, keys, bounds, counts_all, heights, top_eval))
             batch, size = [], 0
     return out
 
 
-def _batch_errors(frames, plans, batch, keys, bounds, counts_all, heights, top_eval, round_float32, evaluate_pairs):
-    from .rotations import euler_to_quat
+def _batch_errors(frames, plans, batch, keys, bounds, counts_all, heights, top_eval):
     tracks, curve0, rest_flat = plans.tracks, plans.curve0, plans.rest
     n_comp = np.array([tracks[t].values.shape[1] for t, _sel in batch])
     first_row = np.cumsum(n_comp) - n_comp                                              # per track
@@ -978,7 +977,7 @@ class _Plans:
         self.basis_top = np.zeros((len(tracks), 3))
         for t, track in enumerate(tracks):
             if track.mode != "QUATERNION" and track.basis is not None:
-                self.basis_top[t] = np.max(np.abs(track.basis), axis=0)
+                self.basis_top[t] = np.maximum(track.basis.max(axis=0), -track.basis.min(axis=0))
         shares = _BUDGET_SHARE_SHARED if shared_frames else _BUDGET_SHARE
         self.budget = np.empty((self.values.shape[0], n), dtype=np.float32)   # float32: only compared
         self.budget[~self.is_quat] = np.float32(shares["EULER"] * tolerance_rad)
@@ -1002,7 +1001,6 @@ class _Plans:
 
         Returns None, or with ``partial`` {track: frame indices whose values may have changed, or
         None for every frame}; a track not listed is unchanged."""
-        from .bezier_fit import fit_keys
         n = self.n
         curves = self.curves_of(track_ids)
         kind = self.kind[curves]
@@ -1138,7 +1136,6 @@ class _Plans:
 
 def _every_frame_segments(frames, values_flat, curves) -> _Segments:
     """A key on every frame with the data's slopes (exact at the frames), for ``curves``."""
-    from .bezier_fit import data_slopes_at
     n = frames.shape[0]
     idx = np.arange(n)
     slopes = data_slopes_at(frames, values_flat[curves].reshape(1, -1), np.repeat(np.arange(curves.shape[0]), n),
@@ -1174,7 +1171,7 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
     for t in tracks:
         v = np.asarray(t.values, dtype=np.float64)
         c = 4 if t.mode == "QUATERNION" else 3
-        if v.shape != (frames.shape[0], c) or not np.all(np.isfinite(v)):
+        if v.shape != (frames.shape[0], c) or not np.isfinite(v).all():
             raise InputError(f"a {t.mode} track needs finite values of shape ({frames.shape[0]}, {c}), got {v.shape}")
         basis = None if t.basis is None else np.asarray(t.basis, dtype=np.float64)
         rest = None if t.rest is None else np.asarray(t.rest, dtype=np.float64)
@@ -1207,7 +1204,7 @@ def reduce_rotation_keys(frames, tracks, tolerance_rad: float, *, shared_frames:
                 err = full
             errors[i] = err
             limit = tolerance_rad - margin
-            worst = float(np.max(err))
+            worst = float(err.max())
             if worst <= limit:
                 out[i] = plans.rotation_keys(i, keys, bounds, worst)
                 continue
