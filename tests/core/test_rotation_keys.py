@@ -185,12 +185,12 @@ def test_quaternion_budget_weights_equalise_each_components_effect_on_the_angle(
 
 def test_keys_start_on_the_prominent_turning_points():
     """A damped oscillation (Ogata 2010 Sec. 5-3) gets a key on each extreme that stands out from
-    the budget; small wiggles (well inside the budget) get none."""
+    the budget; a small fast ripple (well inside the budget) gets none."""
     n = 240
     frames = np.arange(1.0, n + 1)
     angle = ring_down(n, amp_deg=25.0, f_hz=1.0, zeta=0.1, start_s=0.2)
-    wiggle = np.deg2rad(0.02) * np.sin(np.arange(n) * 2.9)                # 1/25 of the tolerance
-    values = np.stack((angle + wiggle, np.zeros(n), np.zeros(n)), axis=1)
+    ripple = np.deg2rad(0.02) * np.sin(np.arange(n) * 2.9)                # 1/25 of the tolerance
+    values = np.stack((angle + ripple, np.zeros(n), np.zeros(n)), axis=1)
     keys = reduce_rotation_keys(frames, [RotationTrack(values, "XYZ", None, np.zeros(3))], np.deg2rad(TOL_DEG))[0]
     x = keys.channels[0]
     d = np.diff(angle)
@@ -199,7 +199,7 @@ def test_keys_start_on_the_prominent_turning_points():
     keyed = set(np.asarray(x.frames, dtype=int) - 1)
     near = [min(abs(k - e) for k in keyed) for e in extremes]
     assert max(near) == 0, (extremes, sorted(keyed))   # on the sampled extreme itself
-    assert x.n_keys < 3 * extremes.size                 # the wiggle's turning points are not keyed
+    assert x.n_keys < 3 * extremes.size                 # the ripple's turning points are not keyed
     got = reference_curve(x, frames, 0.0)
     assert np.rad2deg(np.max(np.abs(got - values[:, 0]))) <= TOL_DEG
 
