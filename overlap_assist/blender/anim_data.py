@@ -224,12 +224,12 @@ def _handle_type_values(handle_type, n):
     if isinstance(handle_type, str):
         return np.full(n, _enum_value(bpy.types.Keyframe, "handle_left_type", handle_type), dtype=np.int32)
     names = np.asarray(handle_type)
+    enums = _bezier_enums()
     if names.dtype == bool:
-        enums = _bezier_enums()
         return np.where(names, enums["ALIGNED"], enums["FREE"]).astype(np.int32)
     aligned = names == "ALIGNED"
-    if _BEZIER is not None and np.all(aligned | (names == "FREE")):   # the reducer's two types: no lookups
-        return np.where(aligned, _BEZIER["ALIGNED"], _BEZIER["FREE"]).astype(np.int32)
+    if np.all(aligned | (names == "FREE")):   # the reducer's two types: no lookups
+        return np.where(aligned, enums["ALIGNED"], enums["FREE"]).astype(np.int32)
     out = np.empty(n, dtype=np.int32)
     for name in np.unique(names):
         out[names == name] = _enum_value(bpy.types.Keyframe, "handle_left_type", str(name))
@@ -245,9 +245,8 @@ def write_bezier_curves(fcurves, cos, handles_left=None, handles_right=None, han
     with them both handle types are set to ``handle_type`` and kept as written: one type name for
     all curves, or a sequence with one entry per curve, each a name, an (n_i,) sequence of names or
     an (n_i,) bool array (fitted handles: True, 'ALIGNED', where both sides share a slope; False,
-    'FREE', elsewhere). Interpolation and
-    handle types are written only where the defaults of new keys (read once, on the first curve)
-    differ.
+    'FREE', elsewhere). Interpolation and handle types are written only where the defaults of new
+    keys (read once, on the first curve) differ.
     """
     enums = _bezier_enums()
     per_curve = not isinstance(handle_type, str)

@@ -985,7 +985,7 @@ class _Plans:
         for block in _row_blocks(quat_rows.shape[0], 4 * n):   # blocks of tracks: bounded temporaries
             rows = quat_rows[block].ravel()
             q = self.values[rows].reshape(-1, 4, n)
-            q = q / np.linalg.norm(q, axis=1, keepdims=True)
+            q = q / np.maximum(np.linalg.norm(q, axis=1, keepdims=True), 1e-300)
             self.budget[rows] = ((shares["QUATERNION"] * tolerance_rad) * _quaternion_budget_weights(q)).reshape(-1, n)
         self.kind = np.zeros(self.values.shape[0], dtype=np.int8)
         self.const = np.zeros(self.values.shape[0])
