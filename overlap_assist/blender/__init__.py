@@ -7,7 +7,7 @@ import contextlib
 
 import bpy
 
-from . import analyze, bake_ops, chains, flight_fix_ops, panels, preview, properties
+from . import analyze, bake_ops, chains, flight_fix_ops, panels, preview, properties, stale_state
 
 classes = (*properties.classes, *analyze.classes, *chains.classes, *bake_ops.classes, *flight_fix_ops.classes,
            *panels.classes)
@@ -18,6 +18,7 @@ def register():
         bpy.utils.register_class(cls)
     bpy.types.Object.overlap_assist = bpy.props.PointerProperty(type=properties.OverlapAssistSettings)
     preview.register()
+    stale_state.register()
 
 
 @contextlib.contextmanager
@@ -34,6 +35,7 @@ def registered():
 
 
 def unregister():
+    stale_state.unregister()
     preview.unregister()
     del bpy.types.Object.overlap_assist
     for cls in reversed(classes):

@@ -145,13 +145,37 @@ def animation_digest(obj) -> str:
     return h.hexdigest()
 
 
+def animation_layout(obj) -> tuple:
+    """What :func:`animation_digest` covers apart from the keys themselves, cheap to read: the
+    active action and slot, and the placement of the unmuted strips of the user's tracks. Key
+    edits change Actions (which depsgraph updates report); this changes with the object."""
+    ad = obj.animation_data
+    if ad is None:
+        return ()
+    out = [(ad.action.as_pointer() if ad.action is not None else 0,
+            ad.action_slot.as_pointer() if ad.action is not None and ad.action_slot is not None else 0)]
+    for track in _user_tracks(ad):
+        if track.mute:
+            continue
+        for strip in track.strips:
+            if strip.mute or strip.action is None:
+                continue
+            out.append((track.name, strip.name, strip.frame_start, strip.frame_end, strip.blend_type,
+                        strip.action.as_pointer(), strip.action_slot.as_pointer() if strip.action_slot else 0))
+    return tuple(out)
+
+
+def recorded_digest(found):
+    """The digest the bake recorded, from :func:`find_bake`'s result (None if it recorded none)."""
+    return found[2][INFO_KEY].to_dict().get("digest")
+
+
 def bake_state(obj):
     """None (no bake), "current", or "stale" (the user's animation changed after the bake)."""
     found = find_bake(obj)
     if found is None:
         return None
-    recorded = found[2][INFO_KEY].to_dict().get("digest")
-    return "current" if recorded == animation_digest(obj) else "stale"
+    return "current" if recorded_digest(found) == animation_digest(obj) else "stale"
 
 
 STALE_MESSAGE = "The animation changed after the bake: Bake Chains again to follow it"

@@ -204,7 +204,7 @@ class VIEW3D_PT_overlap_assist_bake(OverlapPanelMixin, bpy.types.Panel):
     bl_label = "Bake"
 
     def draw(self, context):
-        from . import bake_layer
+        from . import bake_layer, stale_state
         layout = self.layout
         layout.use_property_split = True
         obj = context.active_object
@@ -223,7 +223,7 @@ class VIEW3D_PT_overlap_assist_bake(OverlapPanelMixin, bpy.types.Panel):
         layout.operator("overlap_assist.bake_chains", text="Write into the Action…").into_action = True
         if bake_layer.has_bake(obj):
             layout.prop(s, "bake_influence")
-            if bake_layer.bake_state(obj) == "stale":
+            if stale_state.bake_state(obj) == "stale":   # cached: hashing every key per redraw is slow
                 layout.label(text=bake_layer.STALE_MESSAGE, icon='ERROR')
         if s.last_bake:
             layout.label(text=s.last_bake, icon='INFO')

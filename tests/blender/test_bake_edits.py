@@ -132,3 +132,28 @@ def test_bake_check_on_the_command_line_says_current_or_stale(rig, tmp_path):
     assert res.returncode == 1 and "stale" in res.stdout and "bake again" in res.stdout, res.stderr
     res = run_cli("bake", src, "--check")
     assert res.returncode == 1 and "no Overlap Bake layer" in res.stdout
+
+
+def test_the_panels_stale_check_is_cached_between_edits_and_follows_them(rig, monkeypatch):
+    """The Bake panel asks at every redraw; the user's keys are hashed again only after a change
+    that can alter them (a depsgraph update of an Action, a new layout), and the answer always
+    equals the uncached check."""
+    from overlap_assist.blender import stale_state
+    op(rig, "bake_chains")
+    calls = []
+    digest = bake_layer.animation_digest
+    monkeypatch.setattr(bake_layer, "animation_digest", lambda obj: calls.append(1) or digest(obj))
+    assert [stale_state.bake_state(rig) for _ in range(5)] == ["current"] * 5
+    assert len(calls) == 1                                   # hashed once for five redraws
+    _key_torso(rig)                                          # the I key: an Action update
+    bpy.context.view_layer.update()
+    assert stale_state.bake_state(rig) == "stale" == bake_layer.bake_state(rig)
+    n = len(calls)
+    assert stale_state.bake_state(rig) == "stale" and len(calls) == n
+    user_action = rig.animation_data.action
+    rig.animation_data.action = None                         # a new layout, no Action edited
+    assert stale_state.bake_state(rig) == bake_layer.bake_state(rig)
+    rig.animation_data.action = user_action
+    rig.animation_data.action_slot = user_action.slots[0]
+    assert op(rig, "bake_chains") == {'FINISHED'}            # a new recorded digest
+    assert stale_state.bake_state(rig) == "current" == bake_layer.bake_state(rig)
