@@ -124,6 +124,16 @@ def _hash_fcurves(h, fcurves):
         h.update(str(len(fc.modifiers)).encode())
 
 
+def _playing_user_strips(ad):
+    """(track, strip) of the user's unmuted tracks and strips that hold an action, in order."""
+    for track in _user_tracks(ad):
+        if track.mute:
+            continue
+        for strip in track.strips:
+            if not strip.mute and strip.action is not None:
+                yield track, strip
+
+
 def animation_digest(obj) -> str:
     """Digest of the user's animation of ``obj``: keys of the active action (its slot) and of the
     unmuted strips of the user's tracks, with their placement; the bake layer left out."""
@@ -134,14 +144,9 @@ def animation_digest(obj) -> str:
     if ad.action is not None:
         h.update(b"action")
         _hash_fcurves(h, anim_data.slot_fcurves(ad.action, ad.action_slot))
-    for track in _user_tracks(ad):
-        if track.mute:
-            continue
-        for strip in track.strips:
-            if strip.mute or strip.action is None:
-                continue
-            h.update(f"{track.name}/{strip.name}:{strip.frame_start}:{strip.frame_end}:{strip.blend_type}".encode())
-            _hash_fcurves(h, anim_data.slot_fcurves(strip.action, strip.action_slot))
+    for track, strip in _playing_user_strips(ad):
+        h.update(f"{track.name}/{strip.name}:{strip.frame_start}:{strip.frame_end}:{strip.blend_type}".encode())
+        _hash_fcurves(h, anim_data.slot_fcurves(strip.action, strip.action_slot))
     return h.hexdigest()
 
 
@@ -154,14 +159,9 @@ def animation_layout(obj) -> tuple:
         return ()
     out = [(ad.action.as_pointer() if ad.action is not None else 0,
             ad.action_slot.as_pointer() if ad.action is not None and ad.action_slot is not None else 0)]
-    for track in _user_tracks(ad):
-        if track.mute:
-            continue
-        for strip in track.strips:
-            if strip.mute or strip.action is None:
-                continue
-            out.append((track.name, strip.name, strip.frame_start, strip.frame_end, strip.blend_type,
-                        strip.action.as_pointer(), strip.action_slot.as_pointer() if strip.action_slot else 0))
+    for track, strip in _playing_user_strips(ad):
+        out.append((track.name, strip.name, strip.frame_start, strip.frame_end, strip.blend_type,
+                    strip.action.as_pointer(), strip.action_slot.as_pointer() if strip.action_slot else 0))
     return tuple(out)
 
 
