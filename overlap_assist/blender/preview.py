@@ -12,7 +12,7 @@ import bpy
 import numpy as np
 
 from ..core.rotations import quat_multiply
-from . import frame_guard
+from . import app_handlers, frame_guard
 from .frame_ranges import chain_range
 
 
@@ -223,17 +223,11 @@ _HANDLERS = (
 
 
 def _install():
-    for attr, fn in _HANDLERS:
-        handlers = getattr(bpy.app.handlers, attr)
-        if fn not in handlers:
-            handlers.append(fn)
+    app_handlers.add(_HANDLERS)
 
 
 def _uninstall():
-    for attr, fn in _HANDLERS:
-        handlers = getattr(bpy.app.handlers, attr)
-        while fn in handlers:
-            handlers.remove(fn)
+    app_handlers.remove(_HANDLERS)
 
 
 def register():

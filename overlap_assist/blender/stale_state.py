@@ -10,7 +10,7 @@ Operators and the command line keep calling ``bake_layer.bake_state`` itself.
 """
 import bpy
 
-from . import bake_layer
+from . import app_handlers, bake_layer
 
 _generation = 0
 _cache = {}   # object pointer -> (generation, recorded digest, layout, state)
@@ -60,15 +60,9 @@ _HANDLERS = (
 
 
 def register():
-    for attr, fn in _HANDLERS:
-        handlers = getattr(bpy.app.handlers, attr)
-        if fn not in handlers:
-            handlers.append(fn)
+    app_handlers.add(_HANDLERS)
 
 
 def unregister():
-    for attr, fn in _HANDLERS:
-        handlers = getattr(bpy.app.handlers, attr)
-        while fn in handlers:
-            handlers.remove(fn)
+    app_handlers.remove(_HANDLERS)
     _advance()
